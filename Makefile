@@ -1,0 +1,26 @@
+# Two entry points, each works on a fresh machine with python3 (>= 3.11) and make:
+#   make demo   create .venv, install geoflow, run the invented demo valley -> out/demo/
+#   make test   create .venv, install geoflow with test extras, run the test suite
+PYTHON ?= python3
+VENV ?= .venv
+BIN := $(VENV)/bin
+
+.PHONY: demo test bench clean
+
+$(BIN)/.installed: pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[test]'
+	touch $@
+
+demo: $(BIN)/.installed
+	$(BIN)/geoflow run configs/demo.toml
+
+test: $(BIN)/.installed
+	$(BIN)/python -m pytest -q
+
+bench: $(BIN)/.installed
+	$(BIN)/python benchmarks/bench_hydraulics.py
+
+clean:
+	rm -rf out .pytest_cache .hypothesis

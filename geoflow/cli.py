@@ -1,0 +1,62 @@
+"""Command-line shell over the library: parse, call one function, turn GeoflowError into one line."""
+from __future__ import annotations
+
+import argparse
+import sys
+
+from . import __version__
+from .batch import CAUTION, check, run
+from .errors import GeoflowError
+
+DESCRIPTION = (
+    "geoflow: steady 1D water-surface profiles (standard-step energy method) and flood maps for many "
+    "river reaches from a DEM, centrelines, a land-cover layer and design flows named in a TOML file.\n\n"
+    f"CAUTION: {CAUTION}"
+)
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="geoflow", description=DESCRIPTION,
+                                formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--version", action="version", version=f"geoflow {__version__}")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    r = sub.add_parser("run", help="compute every reach x event of a config and write all outputs",
+                       description=f"Compute every reach x event and write the outputs.\n\nCAUTION: {CAUTION}",
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
+    r.add_argument("config", help="path to the TOML config")
+    r.add_argument("--quiet", action="store_true", help="no progress display")
+    c = sub.add_parser("check", help="validate the config and inputs, list reaches, sections and events; "
+                                     "compute and write nothing",
+                       description=f"Validate config and inputs; write nothing.\n\nCAUTION: {CAUTION}",
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
+    c.add_argument("config", help="path to the TOML config")
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parser().parse_args(argv)
+    try:
+        if args.command == "check":
+            for line in check(args.config).summary_lines():
+                print(line)
+            return 0
+        result = run(args.config, progress=not args.quiet)
+    except GeoflowError as exc:
+        print(f"geoflow: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("geoflow: interrupted", file=sys.stderr)
+        return 130
+    for rid, r in result.reaches.items():
+        status = "ok" if r.status == "complete" else f"FAILED: {r.error}"
+        print(f"reach {rid}: {status}")
+    print(f"outputs in {result.output_dir} ({result.elapsed_s:.1f} s)")
+    print(f"CAUTION: {CAUTION}")
+    if result.failed:
+        print(f"geoflow: {len(result.failed)} reach(es) failed; see manifest.json", file=sys.stderr)
+        return 1
+    return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,501 @@
+"""TOML configuration -> frozen, validated dataclasses.
+
+Every problem found is collected with its TOML path (e.g. ``[sections] spacing``) and reported
+together in one ConfigError; unknown keys are rejected with a did-you-mean suggestion.
+Paths in the file are resolved relative to the config file's folder.
+"""
+from __future__ import annotations
+
+import difflib
+import hashlib
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any, Mapping
+
+from .errors import ConfigError
+
+REGIMES = ("subcritical", "supercritical", "mixed")
+BOUNDARY_TYPES = ("normal_depth", "stage", "critical", "rating")
+FRICTION_SLOPE_METHODS = ("average_conveyance", "arithmetic", "geometric", "harmonic")
+MAPPING_OUTPUTS = ("wse", "depth", "extent", "report")
+VERTICAL_UNITS = ("m", "ft", "us_ft")
+SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+
+
+@dataclass(frozen=True)
+class RunConfig:
+    name: str
+    output_dir: Path
+
+
+@dataclass(frozen=True)
+class TerrainConfig:
+    dem: Path
+    vertical_unit: str = "m"
+
+
+@dataclass(frozen=True)
+class ReachesConfig:
+    centrelines: Path
+    layer: str | None = None
+    id_field: str = "reach_id"
+
+
+@dataclass(frozen=True)
+class SectionsConfig:
+    spacing: float
+    width: float
+    sample_step: float | None = None
+
+
+@dataclass(frozen=True)
+class RoughnessClass:
+    n: float
+    n_low: float | None = None
+    n_high: float | None = None
+
+
+@dataclass(frozen=True)
+class RoughnessConfig:
+    landcover: Path
+    class_field: str
+    channel_class: str
+    classes: Mapping[str, RoughnessClass]
+    layer: str | None = None
+    default_n: float | None = None
+
+    def n_table(self) -> dict[str, float]:
+        return {name: c.n for name, c in self.classes.items()}
+
+
+@dataclass(frozen=True)
+class FlowChange:
+    chainage: float
+    discharge: float
+    reach: str | None = None
+
+
+@dataclass(frozen=True)
+class Event:
+    name: str
+    discharge: float | Mapping[str, float]
+    changes: tuple[FlowChange, ...] = ()
+
+    def upstream_discharge(self, reach_id: str) -> float | None:
+        """Discharge (m3/s) at the upstream end of ``reach_id``; None if this event gives none."""
+        if isinstance(self.discharge, Mapping):
+            return self.discharge.get(reach_id)
+        return float(self.discharge)
+
+    def changes_for(self, reach_id: str) -> tuple[FlowChange, ...]:
+        return tuple(sorted((c for c in self.changes if c.reach in (None, reach_id)), key=lambda c: c.chainage))
+
+
+@dataclass(frozen=True)
+class BoundarySpec:
+    type: str
+    slope: float | None = None
+    wse: float | None = None
+    discharge: tuple[float, ...] = ()
+    stage: tuple[float, ...] = ()
+
+
+@dataclass(frozen=True)
+class BoundaryConfig:
+    downstream: BoundarySpec
+    regime: str = "subcritical"
+    upstream: BoundarySpec | None = None
+    reaches: Mapping[str, Mapping[str, BoundarySpec]] = field(default_factory=lambda: MappingProxyType({}))
+
+    def for_reach(self, reach_id: str) -> tuple[BoundarySpec, BoundarySpec | None]:
+        """(downstream, upstream) boundary of a reach: the per-reach override or the default."""
+        override = self.reaches.get(reach_id, {})
+        return override.get("downstream", self.downstream), override.get("upstream", self.upstream)
+
+
+@dataclass(frozen=True)
+class HydraulicsConfig:
+    friction_slope: str = "average_conveyance"
+    contraction: float = 0.1
+    expansion: float = 0.3
+    gravity: float = 9.80665
+
+
+@dataclass(frozen=True)
+class MappingConfig:
+    cell_size: float | None = None
+    outputs: tuple[str, ...] = MAPPING_OUTPUTS
+
+
+@dataclass(frozen=True)
+class Config:
+    path: Path
+    sha256: str
+    run: RunConfig
+    terrain: TerrainConfig
+    reaches: ReachesConfig
+    sections: SectionsConfig
+    roughness: RoughnessConfig
+    events: tuple[Event, ...]
+    boundary: BoundaryConfig
+    hydraulics: HydraulicsConfig = HydraulicsConfig()
+    mapping: MappingConfig = MappingConfig()
+
+
+# ----------------------------------------------------------------------------------------------
+# Reading helpers: each records a problem (with its TOML path) instead of raising at once.
+
+
+class _Reader:
+    def __init__(self, base: Path, source: str):
+        self.base = base
+        self.source = source
+        self.problems: list[str] = []
+
+    def problem(self, where: str, message: str) -> None:
+        self.problems.append(f"{where}: {message}")
+
+    def table(self, parent: Mapping, key: str, where: str, required: bool = True) -> dict | None:
+        value = parent.get(key)
+        if value is None:
+            if required:
+                self.problem(where, "missing table; add it to the config")
+            return None
+        if not isinstance(value, dict):
+            self.problem(where, f"must be a table, got {type(value).__name__}")
+            return None
+        return value
+
+    def known(self, tbl: Mapping, allowed: tuple[str, ...], where: str) -> None:
+        for key in tbl:
+            if key not in allowed:
+                close = difflib.get_close_matches(key, allowed, n=1)
+                hint = f"; did you mean {close[0]!r}?" if close else f"; allowed keys: {', '.join(allowed)}"
+                self.problem(f"{where} {key}", f"unknown key{hint}")
+
+    def value(self, tbl: Mapping, key: str, where: str, kind: str, required: bool = False, default: Any = None):
+        at = f"{where} {key}"
+        if key not in tbl:
+            if required:
+                words = {"string": "text value", "number": "number", "number positive": "number greater than 0",
+                         "number non-negative": "number (0 or more)"}[kind]
+                self.problem(at, f"missing; give a {words}")
+            return default
+        v = tbl[key]
+        if kind == "string":
+            if not isinstance(v, str) or not v.strip():
+                self.problem(at, f"must be a non-empty string, got {v!r}")
+                return default
+            return v
+        if kind.startswith("number"):
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+                self.problem(at, f"must be a number, got {v!r}")
+                return default
+            v = float(v)
+            if "positive" in kind and v <= 0:
+                self.problem(at, f"must be greater than 0, got {v:g}")
+                return default
+            if "non-negative" in kind and v < 0:
+                self.problem(at, f"must be 0 or more, got {v:g}")
+                return default
+            return v
+        raise AssertionError(kind)
+
+    def path(self, tbl: Mapping, key: str, where: str, required: bool = True) -> Path | None:
+        text = self.value(tbl, key, where, "string", required=required)
+        if text is None:
+            return None
+        p = Path(text)
+        p = p if p.is_absolute() else (self.base / p)
+        return p.resolve()
+
+    def existing(self, tbl: Mapping, key: str, where: str) -> Path | None:
+        p = self.path(tbl, key, where)
+        if p is not None and not p.exists():
+            self.problem(f"{where} {key}", f"file not found: {p}; check the path (relative to {self.source})")
+        return p
+
+    def choice(self, tbl: Mapping, key: str, where: str, choices: tuple[str, ...], default: str | None):
+        v = self.value(tbl, key, where, "string", required=default is None, default=default)
+        if v is not None and v not in choices:
+            close = difflib.get_close_matches(str(v), choices, n=1)
+            hint = f"did you mean {close[0]!r}?" if close else f"use one of {', '.join(choices)}"
+            self.problem(f"{where} {key}", f"{v!r} is not allowed; {hint}")
+            return default
+        return v
+
+
+def _read_run(r: _Reader, doc: dict) -> RunConfig | None:
+    t = r.table(doc, "run", "[run]")
+    if t is None:
+        return None
+    r.known(t, ("name", "output_dir"), "[run]")
+    name = r.value(t, "name", "[run]", "string", required=True)
+    if name is not None and not SAFE_NAME.match(name):
+        r.problem("[run] name", f"{name!r} must be letters, digits, '_', '-' or '.'")
+    out = r.path(t, "output_dir", "[run]")
+    return RunConfig(name=name, output_dir=out) if name and out else None
+
+
+def _read_terrain(r: _Reader, doc: dict) -> TerrainConfig | None:
+    t = r.table(doc, "terrain", "[terrain]")
+    if t is None:
+        return None
+    r.known(t, ("dem", "vertical_unit"), "[terrain]")
+    dem = r.existing(t, "dem", "[terrain]")
+    unit = r.choice(t, "vertical_unit", "[terrain]", VERTICAL_UNITS, "m")
+    return TerrainConfig(dem=dem, vertical_unit=unit) if dem else None
+
+
+def _read_reaches(r: _Reader, doc: dict) -> ReachesConfig | None:
+    t = r.table(doc, "reaches", "[reaches]")
+    if t is None:
+        return None
+    r.known(t, ("centrelines", "layer", "id_field"), "[reaches]")
+    path = r.existing(t, "centrelines", "[reaches]")
+    layer = r.value(t, "layer", "[reaches]", "string")
+    id_field = r.value(t, "id_field", "[reaches]", "string", default="reach_id")
+    return ReachesConfig(centrelines=path, layer=layer, id_field=id_field) if path else None
+
+
+def _read_sections(r: _Reader, doc: dict) -> SectionsConfig | None:
+    t = r.table(doc, "sections", "[sections]")
+    if t is None:
+        return None
+    r.known(t, ("spacing", "width", "sample_step"), "[sections]")
+    spacing = r.value(t, "spacing", "[sections]", "number positive", required=True)
+    width = r.value(t, "width", "[sections]", "number positive", required=True)
+    step = r.value(t, "sample_step", "[sections]", "number positive")
+    if width is not None and step is not None and step >= width / 4:
+        r.problem("[sections] sample_step", f"{step:g} m is too coarse for a {width:g} m wide section; use at most width/4")
+    if spacing is None or width is None:
+        return None
+    return SectionsConfig(spacing=spacing, width=width, sample_step=step)
+
+
+def _read_class(r: _Reader, name: str, t: Any) -> RoughnessClass | None:
+    where = f"[roughness.classes.{name}]"
+    if not isinstance(t, dict):
+        r.problem(where, f"must be a table with n = ..., got {t!r}")
+        return None
+    r.known(t, ("n", "n_low", "n_high"), where)
+    vals = {k: r.value(t, k, where, "number positive", required=(k == "n")) for k in ("n", "n_low", "n_high")}
+    for k, v in vals.items():
+        if v is not None and not 0.005 <= v <= 1.0:
+            r.problem(f"{where} {k}", f"Manning's n = {v:g} is outside 0.005-1.0; check the units (s/m^(1/3))")
+            return None
+    n, lo, hi = vals["n"], vals["n_low"], vals["n_high"]
+    if n is None:
+        return None
+    if (lo is not None and lo > n) or (hi is not None and hi < n):
+        r.problem(where, f"need n_low <= n <= n_high, got {lo}, {n}, {hi}")
+    return RoughnessClass(n=n, n_low=lo, n_high=hi)
+
+
+def _read_roughness(r: _Reader, doc: dict) -> RoughnessConfig | None:
+    t = r.table(doc, "roughness", "[roughness]")
+    if t is None:
+        return None
+    keys = ("landcover", "layer", "class_field", "channel_class", "default_n", "classes")
+    r.known(t, keys, "[roughness]")
+    path = r.existing(t, "landcover", "[roughness]")
+    layer = r.value(t, "layer", "[roughness]", "string")
+    field_ = r.value(t, "class_field", "[roughness]", "string", required=True)
+    channel = r.value(t, "channel_class", "[roughness]", "string", required=True)
+    default_n = r.value(t, "default_n", "[roughness]", "number positive")
+    raw = r.table(t, "classes", "[roughness.classes]", required=True) or {}
+    classes = {str(k): c for k, v in raw.items() if (c := _read_class(r, str(k), v)) is not None}
+    if raw and channel is not None and channel not in raw and default_n is None:
+        r.problem("[roughness] channel_class", f"{channel!r} has no [roughness.classes.{channel}] table; add one")
+    if not (path and field_ and channel):
+        return None
+    return RoughnessConfig(landcover=path, layer=layer, class_field=field_, channel_class=channel,
+                           classes=MappingProxyType(classes), default_n=default_n)
+
+
+def _read_discharge(r: _Reader, v: Any, where: str) -> float | Mapping[str, float] | None:
+    if isinstance(v, dict):
+        out = {}
+        for reach, q in v.items():
+            qv = r.value(v, reach, where, "number positive")
+            if qv is not None:
+                out[str(reach)] = qv
+        return MappingProxyType(out) if out else None
+    return r.value({"discharge": v}, "discharge", where.rsplit(" ", 1)[0], "number positive", required=True)
+
+
+def _read_changes(r: _Reader, raw: Any, where: str) -> tuple[FlowChange, ...]:
+    if not isinstance(raw, list):
+        r.problem(f"{where} changes", "must be a list of {chainage = ..., discharge = ...} tables")
+        return ()
+    out = []
+    for i, c in enumerate(raw):
+        at = f"{where} changes[{i}]"
+        if not isinstance(c, dict):
+            r.problem(at, f"must be a table, got {c!r}")
+            continue
+        r.known(c, ("chainage", "discharge", "reach"), at)
+        ch = r.value(c, "chainage", at, "number non-negative", required=True)
+        q = r.value(c, "discharge", at, "number positive", required=True)
+        reach = r.value(c, "reach", at, "string")
+        if ch is not None and q is not None:
+            out.append(FlowChange(chainage=ch, discharge=q, reach=reach))
+    return tuple(out)
+
+
+def _read_events(r: _Reader, doc: dict) -> tuple[Event, ...]:
+    raw = doc.get("events")
+    if raw is None:
+        r.problem("[[events]]", "missing; add at least one [[events]] with name and discharge")
+        return ()
+    if not isinstance(raw, list) or not raw:
+        r.problem("[[events]]", "must be an array of tables ([[events]]) with name and discharge")
+        return ()
+    events, seen = [], set()
+    for i, t in enumerate(raw):
+        where = f"[[events]][{i}]"
+        if not isinstance(t, dict):
+            r.problem(where, "must be a table")
+            continue
+        r.known(t, ("name", "discharge", "changes"), where)
+        name = r.value(t, "name", where, "string", required=True)
+        if name is not None:
+            where = f"[[events]] {name!r}"
+            if not SAFE_NAME.match(name):
+                r.problem(f"{where} name", "use letters, digits, '_', '-' or '.' (it becomes a file name)")
+            if name in seen:
+                r.problem(f"{where} name", "duplicate event name; names must be unique")
+            seen.add(name)
+        q = _read_discharge(r, t.get("discharge"), f"{where} discharge") if "discharge" in t else None
+        if "discharge" not in t:
+            r.problem(f"{where} discharge", "missing; give the discharge in m3/s (> 0)")
+        changes = _read_changes(r, t.get("changes", []), where)
+        if name is not None and q is not None:
+            events.append(Event(name=name, discharge=q, changes=changes))
+    return tuple(events)
+
+
+def _read_bspec(r: _Reader, v: Any, where: str) -> BoundarySpec | None:
+    if not isinstance(v, dict):
+        r.problem(where, "must be a table such as { type = \"normal_depth\", slope = 0.001 }")
+        return None
+    btype = r.choice(v, "type", where, BOUNDARY_TYPES, None)
+    if btype is None:
+        return None
+    needs = {"normal_depth": ("slope",), "stage": ("wse",), "critical": (), "rating": ("discharge", "stage")}[btype]
+    r.known(v, ("type",) + needs, where)
+    if btype == "normal_depth":
+        s = r.value(v, "slope", where, "number positive", required=True)
+        return BoundarySpec(type=btype, slope=s) if s is not None else None
+    if btype == "stage":
+        w = r.value(v, "wse", where, "number", required=True)
+        return BoundarySpec(type=btype, wse=w) if w is not None else None
+    if btype == "critical":
+        return BoundarySpec(type=btype)
+    q, h = v.get("discharge"), v.get("stage")
+    ok = all(isinstance(a, list) and len(a) >= 2 and all(isinstance(x, (int, float)) and not isinstance(x, bool)
+                                                           for x in a) for a in (q, h))
+    if not ok or len(q) != len(h):
+        r.problem(where, "rating needs discharge = [...] and stage = [...] lists of numbers of equal length (>= 2)")
+        return None
+    if any(b <= a for a, b in zip(q, q[1:])) or q[0] < 0:
+        r.problem(f"{where} discharge", "rating discharges must be >= 0 and strictly increasing")
+        return None
+    return BoundarySpec(type=btype, discharge=tuple(map(float, q)), stage=tuple(map(float, h)))
+
+
+def _read_boundary(r: _Reader, doc: dict) -> BoundaryConfig | None:
+    t = r.table(doc, "boundary", "[boundary]")
+    if t is None:
+        return None
+    r.known(t, ("regime", "downstream", "upstream", "reaches"), "[boundary]")
+    regime = r.choice(t, "regime", "[boundary]", REGIMES, "subcritical")
+    down = _read_bspec(r, t["downstream"], "[boundary] downstream") if "downstream" in t else None
+    if "downstream" not in t:
+        r.problem("[boundary] downstream", "missing; e.g. downstream = { type = \"normal_depth\", slope = 0.001 }")
+    up = _read_bspec(r, t["upstream"], "[boundary] upstream") if "upstream" in t else None
+    if regime in ("supercritical", "mixed") and "upstream" not in t:
+        r.problem("[boundary] upstream", f"regime {regime!r} needs an upstream boundary, e.g. {{ type = \"critical\" }}")
+    per_reach = {}
+    for rid, sub in (r.table(t, "reaches", "[boundary.reaches]", required=False) or {}).items():
+        where = f"[boundary.reaches.{rid}]"
+        if not isinstance(sub, dict):
+            r.problem(where, "must be a table with downstream and/or upstream")
+            continue
+        r.known(sub, ("downstream", "upstream"), where)
+        specs = {k: _read_bspec(r, sub[k], f"{where} {k}") for k in ("downstream", "upstream") if k in sub}
+        per_reach[str(rid)] = MappingProxyType({k: s for k, s in specs.items() if s is not None})
+    if down is None:
+        return None
+    return BoundaryConfig(downstream=down, regime=regime, upstream=up, reaches=MappingProxyType(per_reach))
+
+
+def _read_hydraulics(r: _Reader, doc: dict) -> HydraulicsConfig:
+    t = r.table(doc, "hydraulics", "[hydraulics]", required=False) or {}
+    r.known(t, ("friction_slope", "contraction", "expansion", "gravity"), "[hydraulics]")
+    d = HydraulicsConfig()
+    fs = r.choice(t, "friction_slope", "[hydraulics]", FRICTION_SLOPE_METHODS, d.friction_slope)
+    cc = r.value(t, "contraction", "[hydraulics]", "number non-negative", default=d.contraction)
+    ce = r.value(t, "expansion", "[hydraulics]", "number non-negative", default=d.expansion)
+    g = r.value(t, "gravity", "[hydraulics]", "number positive", default=d.gravity)
+    for key, v in (("contraction", cc), ("expansion", ce)):
+        if v is not None and v > 1.0:
+            r.problem(f"[hydraulics] {key}", f"{v:g} is above 1; loss coefficients are usually 0-1")
+    return HydraulicsConfig(friction_slope=fs, contraction=cc, expansion=ce, gravity=g)
+
+
+def _read_mapping(r: _Reader, doc: dict) -> MappingConfig:
+    t = r.table(doc, "mapping", "[mapping]", required=False) or {}
+    r.known(t, ("cell_size", "outputs"), "[mapping]")
+    cell = r.value(t, "cell_size", "[mapping]", "number positive")
+    outs = t.get("outputs", list(MAPPING_OUTPUTS))
+    if not isinstance(outs, list) or not all(isinstance(o, str) for o in outs):
+        r.problem("[mapping] outputs", f"must be a list of names from {', '.join(MAPPING_OUTPUTS)}")
+        outs = list(MAPPING_OUTPUTS)
+    for o in outs:
+        if o not in MAPPING_OUTPUTS:
+            close = difflib.get_close_matches(o, MAPPING_OUTPUTS, n=1)
+            hint = f"did you mean {close[0]!r}?" if close else f"use {', '.join(MAPPING_OUTPUTS)}"
+            r.problem("[mapping] outputs", f"{o!r} is not an output; {hint}")
+    return MappingConfig(cell_size=cell, outputs=tuple(o for o in outs if o in MAPPING_OUTPUTS))
+
+
+TOP_LEVEL = ("run", "terrain", "reaches", "sections", "roughness", "events", "boundary", "hydraulics", "mapping")
+
+
+def load_config(path: str | Path) -> Config:
+    """Read and validate a geoflow TOML file; raise ConfigError listing every problem found."""
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: config file not found; check the path") from None
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot read config ({exc.strerror})") from None
+    try:
+        doc = tomllib.loads(raw.decode("utf-8"))
+    except UnicodeDecodeError:
+        raise ConfigError(f"{path}: not UTF-8 text; save the config as UTF-8") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"{path}: TOML syntax error: {exc}; fix the line it names") from None
+    r = _Reader(path.resolve().parent, str(path))
+    r.known(doc, TOP_LEVEL, "top level:")
+    parts = dict(
+        run=_read_run(r, doc), terrain=_read_terrain(r, doc), reaches=_read_reaches(r, doc),
+        sections=_read_sections(r, doc), roughness=_read_roughness(r, doc), events=_read_events(r, doc),
+        boundary=_read_boundary(r, doc), hydraulics=_read_hydraulics(r, doc), mapping=_read_mapping(r, doc),
+    )
+    if r.problems:
+        raise ConfigError(_summarise(path, r.problems), problems=[f"{path}: {p}" for p in r.problems])
+    return Config(path=path.resolve(), sha256=hashlib.sha256(raw).hexdigest(), **parts)
+
+
+def _summarise(path: Path, problems: list[str]) -> str:
+    head = f"{path}: {problems[0]}"
+    if len(problems) == 1:
+        return head
+    return head + f" (and {len(problems) - 1} more: " + "; ".join(problems[1:]) + ")"

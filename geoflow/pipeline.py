@@ -1,0 +1,194 @@
+"""One reach, start to finish: sections -> Manning's n -> steady profiles -> flood maps.
+
+This module wires the stages together. It holds no hydraulics and no file formats itself:
+terrain/layers read inputs, hydraulics/ computes, mapping/outputs/report write.
+"""
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from . import layers, mapping, roughness, sections, terrain
+from .config import BoundarySpec, Config, Event
+from .errors import ConfigError, GeoflowError, HydraulicsError
+from .hydraulics.geometry import build_table
+from .hydraulics.solver import Boundary, SolverOptions, solve_profile
+from .records import ReachGeometry
+
+PROFILE_COLUMNS = (
+    "reach_id", "event", "section_id", "chainage_m", "discharge_m3s", "bed_m", "wse_m", "energy_m",
+    "critical_wse_m", "velocity_ms", "froude", "alpha", "area_m2", "top_width_m", "friction_slope", "flags",
+)
+
+
+@dataclass(frozen=True)
+class Inputs:
+    """Opened inputs shared by every reach of a config (no open file handles: picklable)."""
+
+    dem: terrain.Dem
+    reaches: tuple[tuple[str, object], ...]     # (reach_id, LineString in DEM CRS)
+    cover: object                               # layers.LandCover
+
+
+@dataclass
+class ReachResult:
+    reach_id: str
+    status: str = "pending"                     # "complete" | "failed"
+    error: str | None = None
+    geometry: ReachGeometry | None = None
+    profile: pd.DataFrame | None = None         # profile.csv rows of this reach, all events
+    maps: dict = field(default_factory=dict)    # event -> mapping.ReachMap
+    timings: dict = field(default_factory=dict)
+    warnings: list = field(default_factory=list)
+
+
+def open_inputs(cfg: Config) -> Inputs:
+    """Open the DEM, centrelines and land cover and check them against the roughness table."""
+    dem = terrain.open_dem(cfg.terrain.dem, cfg.terrain.vertical_unit)
+    reaches = layers.read_centrelines(cfg.reaches.centrelines, dem.crs, layer=cfg.reaches.layer,
+                                      id_field=cfg.reaches.id_field)
+    cover = layers.read_landcover(cfg.roughness.landcover, dem.crs, cfg.roughness.class_field,
+                                  layer=cfg.roughness.layer)
+    _check_classes(cfg, cover)
+    _check_events(cfg, [rid for rid, _ in reaches])
+    return Inputs(dem=dem, reaches=tuple(reaches), cover=cover)
+
+
+def _check_classes(cfg: Config, cover) -> None:
+    present = roughness.landcover_classes(cover)
+    missing = [c for c in present if c not in cfg.roughness.classes]
+    if missing and cfg.roughness.default_n is None:
+        raise ConfigError(
+            f"{cfg.roughness.landcover}: land-cover class(es) {', '.join(map(repr, missing))} in field "
+            f"{cfg.roughness.class_field!r} have no Manning's n; add [roughness.classes.<name>] tables or set "
+            f"[roughness] default_n"
+        )
+
+
+def _check_events(cfg: Config, reach_ids: list[str]) -> None:
+    known = set(reach_ids)
+    for ev in cfg.events:
+        if not isinstance(ev.discharge, float):
+            for rid in ev.discharge:
+                if rid not in known:
+                    raise ConfigError(f"{cfg.path}: [[events]] {ev.name!r} discharge names reach {rid!r}, which is "
+                                      f"not in {cfg.reaches.centrelines.name} (reaches: {', '.join(sorted(known))})")
+            for rid in known - set(ev.discharge):
+                raise ConfigError(f"{cfg.path}: [[events]] {ev.name!r} discharge gives no value for reach {rid!r}; "
+                                  f"add {rid} = <m3/s> to its discharge table")
+        for ch in ev.changes:
+            if ch.reach is not None and ch.reach not in known:
+                raise ConfigError(f"{cfg.path}: [[events]] {ev.name!r} changes names unknown reach {ch.reach!r}")
+    for rid in cfg.boundary.reaches:
+        if rid not in known:
+            raise ConfigError(f"{cfg.path}: [boundary.reaches.{rid}] names a reach that is not in "
+                              f"{cfg.reaches.centrelines.name} (reaches: {', '.join(sorted(known))})")
+
+
+def build_geometry(cfg: Config, inputs: Inputs, reach_id: str, line) -> ReachGeometry:
+    """Cut and sample cross-sections of one reach and give each segment its Manning's n."""
+    geom = sections.cut_sections(reach_id, line, inputs.dem, cfg.sections.spacing, cfg.sections.width,
+                                 sample_step=cfg.sections.sample_step)
+    return roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
+                                      default_n=cfg.roughness.default_n)
+
+
+def discharge_along(event: Event, reach_id: str, chainage: np.ndarray) -> np.ndarray:
+    """Discharge (m3/s) at each section: the upstream value, replaced downstream of each flow change."""
+    q = np.full(chainage.shape, float(event.upstream_discharge(reach_id)))
+    for ch in event.changes_for(reach_id):
+        q[chainage >= ch.chainage - 1e-6] = ch.discharge
+    return q
+
+
+def to_boundary(spec: BoundarySpec | None) -> Boundary | None:
+    if spec is None:
+        return None
+    if spec.type == "normal_depth":
+        return Boundary.normal_depth(slope=spec.slope)
+    if spec.type == "stage":
+        return Boundary.stage(wse=spec.wse)
+    if spec.type == "critical":
+        return Boundary.critical()
+    return Boundary.rating(discharge=np.asarray(spec.discharge), stage=np.asarray(spec.stage))
+
+
+def solver_options(cfg: Config) -> SolverOptions:
+    h = cfg.hydraulics
+    return SolverOptions(g=h.gravity, regime=cfg.boundary.regime, friction_slope=h.friction_slope,
+                         contraction=h.contraction, expansion=h.expansion)
+
+
+def solve_reach(cfg: Config, geom: ReachGeometry) -> dict:
+    """Steady profile of every event on one reach -> {event name: hydraulics Profile}."""
+    tables = [build_table(s.station, s.elevation, s.n, s.part) for s in geom.sections]
+    chainage = np.array([s.chainage for s in geom.sections])
+    down, up = cfg.boundary.for_reach(geom.reach_id)
+    opts = solver_options(cfg)
+    out = {}
+    for ev in cfg.events:
+        q = discharge_along(ev, geom.reach_id, chainage)
+        try:
+            out[ev.name] = solve_profile(tables, geom.lengths, q, downstream=to_boundary(down),
+                                         upstream=to_boundary(up), options=opts)
+        except GeoflowError as exc:
+            raise HydraulicsError(f"reach {geom.reach_id!r}, event {ev.name!r}: {exc}") from None
+    return out
+
+
+def profile_rows(geom: ReachGeometry, event: str, prof) -> pd.DataFrame:
+    """profile.csv rows (contract columns first) for one reach and event."""
+    n = len(geom.sections)
+    flags = [";".join(dict.fromkeys(tuple(s.flags) + tuple(f))) for s, f in zip(geom.sections, prof.flags)]
+    df = pd.DataFrame({
+        "reach_id": [geom.reach_id] * n,
+        "event": [event] * n,
+        "section_id": [s.section_id for s in geom.sections],
+        "chainage_m": [s.chainage for s in geom.sections],
+        "discharge_m3s": prof.discharge,
+        "bed_m": [s.bed_elevation for s in geom.sections],
+        "wse_m": prof.wse,
+        "energy_m": prof.energy,
+        "critical_wse_m": prof.critical_wse,
+        "velocity_ms": prof.velocity,
+        "froude": prof.froude,
+        "alpha": prof.alpha,
+        "area_m2": prof.area,
+        "top_width_m": prof.top_width,
+        "friction_slope": prof.friction_slope,
+        "flags": flags,
+    })
+    df["regime"] = list(prof.regime)
+    df["depth_m"] = df["wse_m"] - df["bed_m"]
+    for j, name in enumerate(("left_overbank", "channel", "right_overbank")):
+        df[f"q_{name}_m3s"] = prof.part_discharge[:, j]
+    return df
+
+
+def run_reach(cfg: Config, inputs: Inputs, reach_id: str, line, geom: ReachGeometry | None = None) -> ReachResult:
+    """Everything for one reach, in memory; GeoflowError becomes a failed result, not an exception."""
+    res = ReachResult(reach_id=reach_id)
+    try:
+        t0 = time.perf_counter()
+        res.geometry = geom if geom is not None else build_geometry(cfg, inputs, reach_id, line)
+        t1 = time.perf_counter()
+        profiles = solve_reach(cfg, res.geometry)
+        t2 = time.perf_counter()
+        res.profile = pd.concat([profile_rows(res.geometry, ev, p) for ev, p in profiles.items()],
+                                ignore_index=True)
+        wants_maps = {"wse", "depth", "extent"} & set(cfg.mapping.outputs)
+        for ev, p in profiles.items():
+            if wants_maps:
+                res.maps[ev] = mapping.map_reach(inputs.dem, res.geometry, np.asarray(p.wse),
+                                                 cell_size=cfg.mapping.cell_size)
+        t3 = time.perf_counter()
+        res.timings = {"sections_s": t1 - t0, "hydraulics_s": t2 - t1, "mapping_s": t3 - t2}
+        res.warnings = list(res.geometry.warnings)
+        res.status = "complete"
+    except GeoflowError as exc:
+        res.status, res.error = "failed", str(exc)
+    return res

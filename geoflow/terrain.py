@@ -1,0 +1,150 @@
+"""DEM access at the edge of the pipeline: metadata, windows, bilinear sampling, CRS.
+
+Only this module (and outputs.py) opens raster files. Everything returned is plain numpy
+in metres of the DEM's vertical datum, with NaN where the DEM has no data.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import rasterio
+from affine import Affine
+from rasterio.crs import CRS
+from rasterio.windows import Window
+
+from .errors import InputDataError
+
+VERTICAL_UNITS = {"m": 1.0, "metre": 1.0, "meter": 1.0, "ft": 0.3048, "foot": 0.3048, "us_ft": 1200.0 / 3937.0}
+
+
+@dataclass(frozen=True)
+class Dem:
+    """A DEM on disk: its grid, CRS and vertical scale. Cheap to pickle (no open handle)."""
+
+    path: Path
+    crs: CRS
+    transform: Affine
+    width: int
+    height: int
+    nodata: float | None
+    z_factor: float = 1.0      # multiply stored values by this to get metres
+
+    @property
+    def cell_size(self) -> float:
+        """Cell size (m), the larger of the two axes."""
+        return max(abs(self.transform.a), abs(self.transform.e))
+
+    @property
+    def bounds(self) -> tuple[float, float, float, float]:
+        """(left, bottom, right, top) in DEM CRS units."""
+        return _bounds(self.transform, self.width, self.height)
+
+    def window_for(self, bounds: tuple[float, float, float, float], pad: int = 2) -> Window:
+        """Integer window of the DEM grid covering ``bounds`` plus ``pad`` cells, clipped to the DEM."""
+        left, bottom, right, top = bounds
+        inv = ~self.transform
+        cols, rows = inv * (np.array([left, right, left, right]), np.array([top, top, bottom, bottom]))
+        c0 = max(int(math.floor(np.min(cols))) - pad, 0)
+        r0 = max(int(math.floor(np.min(rows))) - pad, 0)
+        c1 = min(int(math.ceil(np.max(cols))) + pad, self.width)
+        r1 = min(int(math.ceil(np.max(rows))) + pad, self.height)
+        if c1 <= c0 or r1 <= r0:
+            return Window(0, 0, 0, 0)
+        return Window(c0, r0, c1 - c0, r1 - r0)
+
+    def window_transform(self, window: Window) -> Affine:
+        return rasterio.windows.transform(window, self.transform)
+
+    def read(self, window: Window | None = None) -> np.ndarray:
+        """Elevations (m, float64) in ``window`` (whole DEM if None), NaN where nodata."""
+        try:
+            with rasterio.open(self.path) as ds:
+                arr = ds.read(1, window=window, masked=True)
+        except rasterio.errors.RasterioError as exc:
+            raise InputDataError(f"{self.path}: cannot read DEM ({exc}); check the file is a valid raster") from None
+        out = np.asarray(arr.filled(np.nan), dtype=np.float64)
+        if self.z_factor != 1.0:
+            out *= self.z_factor
+        return out
+
+    def sample(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """Bilinear interpolation of elevation (m) at points (x, y) in DEM CRS.
+
+        Cell values sit at cell centres; a point is interpolated from its four surrounding
+        centres. Points outside the DEM or touching a nodata cell give NaN. Only the
+        window covering the points is read from disk.
+        """
+        x = np.asarray(x, dtype=np.float64)
+        y = np.asarray(y, dtype=np.float64)
+        out = np.full(x.shape, np.nan)
+        if x.size == 0:
+            return out
+        inv = ~self.transform
+        col_f, row_f = inv * (x.ravel(), y.ravel())
+        col_f = np.asarray(col_f) - 0.5
+        row_f = np.asarray(row_f) - 0.5
+        ok = np.isfinite(col_f) & np.isfinite(row_f)
+        ok &= (col_f >= -0.5) & (col_f <= self.width - 0.5) & (row_f >= -0.5) & (row_f <= self.height - 0.5)
+        if not np.any(ok):
+            return out
+        # Clamp half a cell at the raster edge (edge value extends to the border).
+        cf = np.clip(col_f[ok], 0.0, self.width - 1.0)
+        rf = np.clip(row_f[ok], 0.0, self.height - 1.0)
+        c0 = np.floor(cf).astype(np.int64)
+        r0 = np.floor(rf).astype(np.int64)
+        wc0, wr0 = int(c0.min()), int(r0.min())
+        wc1 = min(int(c0.max()) + 2, self.width)
+        wr1 = min(int(r0.max()) + 2, self.height)
+        z = self.read(Window(wc0, wr0, wc1 - wc0, wr1 - wr0))
+        c1 = np.minimum(c0 + 1, self.width - 1)
+        r1 = np.minimum(r0 + 1, self.height - 1)
+        fx = cf - c0
+        fy = rf - r0
+        lc0, lc1, lr0, lr1 = c0 - wc0, c1 - wc0, r0 - wr0, r1 - wr0
+        val = (
+            z[lr0, lc0] * (1 - fx) * (1 - fy)
+            + z[lr0, lc1] * fx * (1 - fy)
+            + z[lr1, lc0] * (1 - fx) * fy
+            + z[lr1, lc1] * fx * fy
+        )
+        flat = out.ravel()
+        flat[np.flatnonzero(ok)] = val
+        return flat.reshape(x.shape)
+
+
+def _bounds(transform: Affine, width: int, height: int) -> tuple[float, float, float, float]:
+    xs, ys = transform * (np.array([0, width, 0, width]), np.array([0, 0, height, height]))
+    return float(np.min(xs)), float(np.min(ys)), float(np.max(xs)), float(np.max(ys))
+
+
+def open_dem(path: str | Path, vertical_unit: str = "m") -> Dem:
+    """Open a DEM's metadata; refuse what geoflow cannot use, with a message saying what to do."""
+    path = Path(path)
+    if not path.exists():
+        raise InputDataError(f"{path}: DEM file not found; check [terrain] dem in the config")
+    unit = vertical_unit.lower()
+    if unit not in VERTICAL_UNITS:
+        raise InputDataError(
+            f"[terrain] vertical_unit = {vertical_unit!r} is not known; use one of {sorted(set(VERTICAL_UNITS))}"
+        )
+    try:
+        with rasterio.open(path) as ds:
+            crs, transform, width, height, nodata = ds.crs, ds.transform, ds.width, ds.height, ds.nodata
+            count = ds.count
+    except rasterio.errors.RasterioError as exc:
+        raise InputDataError(f"{path}: cannot open as a raster ({exc}); give a GeoTIFF DEM") from None
+    if count < 1:
+        raise InputDataError(f"{path}: raster has no bands; give a single-band DEM")
+    if crs is None:
+        raise InputDataError(f"{path}: DEM has no coordinate reference system; assign a projected CRS (e.g. with gdal_edit -a_srs)")
+    if crs.is_geographic:
+        raise InputDataError(
+            f"{path}: DEM is in a geographic CRS ({crs.to_string()}); reproject it to a projected CRS in metres or feet first"
+        )
+    if transform.b != 0 or transform.d != 0:
+        raise InputDataError(f"{path}: DEM grid is rotated; warp it to a north-up grid first")
+    return Dem(path=path, crs=crs, transform=transform, width=width, height=height, nodata=nodata,
+               z_factor=VERTICAL_UNITS[unit])

@@ -1,0 +1,128 @@
+"""Synthetic straight valleys with an analytic trapezoidal channel, written to GeoTIFF/GeoPackage.
+
+Used by the end-to-end and config tests. The channel is prismatic, so normal depth and top
+width have closed forms (Manning's equation; Chow 1959 ch. 6) solved here with scipy brentq.
+"""
+from __future__ import annotations
+
+import textwrap
+from dataclasses import dataclass
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import rasterio
+from rasterio.transform import from_origin
+from scipy.optimize import brentq
+from shapely.geometry import LineString, box
+
+CRS = "EPSG:32630"
+
+
+@dataclass(frozen=True)
+class Valley:
+    dem: Path
+    centrelines: Path
+    landcover: Path
+    length: float           # m, along x, flowing towards +x
+    bottom_width: float     # m
+    side_slope: float       # H:V
+    bank_height: float      # m, channel depth up to the floodplain
+    slope: float            # bed slope
+    x0: float
+    yc: float
+    z_down: float           # bed elevation at the downstream end
+
+    def bed_at(self, x):
+        return self.z_down + (self.x0 + self.length - np.asarray(x)) * self.slope
+
+    def area(self, y):
+        return (self.bottom_width + self.side_slope * y) * y
+
+    def top_width(self, y):
+        return self.bottom_width + 2 * self.side_slope * y
+
+    def perimeter(self, y):
+        return self.bottom_width + 2 * y * np.sqrt(1 + self.side_slope**2)
+
+    def normal_depth(self, q, n):
+        """Manning's equation Q = (1/n) A R^(2/3) S^(1/2) (SI) solved for y with scipy brentq."""
+        f = lambda y: self.area(y) * (self.area(y) / self.perimeter(y)) ** (2 / 3) * np.sqrt(self.slope) / n - q
+        return brentq(f, 1e-6, 50.0, xtol=1e-10)
+
+
+def make_valley(folder: Path, length=1200.0, bottom_width=12.0, side_slope=2.0, bank_height=4.0,
+                slope=0.001, half_width=100.0, cell=1.0, crs=CRS, centreline_crs=None,
+                classes=("channel",), z_down=50.0) -> Valley:
+    """Write dem.tif, centrelines.gpkg and landcover.gpkg for a straight trapezoidal valley."""
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    x0, y0 = 500000.0, 4000000.0
+    ncol, nrow = int(length / cell) + 40, int(2 * half_width / cell)
+    yc = y0 + half_width
+    transform = from_origin(x0 - 20 * cell, y0 + 2 * half_width, cell, cell)
+    cols, rows = np.meshgrid(np.arange(ncol) + 0.5, np.arange(nrow) + 0.5)
+    x, y = transform * (cols, rows)
+    v = Valley(folder / "dem.tif", folder / "centrelines.gpkg", folder / "landcover.gpkg", length,
+               bottom_width, side_slope, bank_height, slope, x0, yc, z_down)
+    off = np.abs(y - yc)
+    depth_below_bank = np.clip(bank_height - (off - bottom_width / 2) / side_slope, 0.0, bank_height)
+    z = v.bed_at(x) + bank_height - depth_below_bank
+    z += np.clip(off - (bottom_width / 2 + side_slope * bank_height + 40.0), 0, None) * 0.05  # valley walls
+    with rasterio.open(v.dem, "w", driver="GTiff", width=ncol, height=nrow, count=1, dtype="float32",
+                       crs=crs, transform=transform, nodata=-9999.0) as ds:
+        ds.write(z.astype("float32"), 1)
+    line = LineString([(x0, yc), (x0 + length, yc)])
+    cl = gpd.GeoDataFrame({"reach_id": ["r1"]}, geometry=[line], crs=crs)
+    if centreline_crs:
+        cl = cl.to_crs(centreline_crs)
+    cl.to_file(v.centrelines, layer="centrelines", driver="GPKG")
+    top = bottom_width / 2 + side_slope * bank_height
+    full = box(x0 - 20 * cell, y0, x0 + length + 20 * cell, y0 + 2 * half_width)
+    chan = box(x0 - 20 * cell, yc - top, x0 + length + 20 * cell, yc + top)
+    polys, names = [chan], [classes[0]]
+    if len(classes) > 1:
+        polys.append(full.difference(chan))
+        names.append(classes[1])
+    gpd.GeoDataFrame({"cover": names}, geometry=polys, crs=crs).to_file(v.landcover, layer="landcover",
+                                                                         driver="GPKG")
+    return v
+
+
+def write_config(folder: Path, valley: Valley, discharge: float, n: float, extra: str = "",
+                 boundary: str | None = None, classes: dict | None = None, spacing=50.0, width=120.0) -> Path:
+    """A config for the valley; ``extra`` is appended verbatim."""
+    classes = classes or {"channel": n}
+    cls = "\n".join(f"[roughness.classes.{k}]\nn = {val}\n" for k, val in classes.items())
+    boundary = boundary or f'{{ type = "normal_depth", slope = {valley.slope} }}'
+    text = textwrap.dedent(f"""\
+        [run]
+        name = "valley"
+        output_dir = "out"
+
+        [terrain]
+        dem = "{valley.dem.name}"
+
+        [reaches]
+        centrelines = "{valley.centrelines.name}"
+
+        [sections]
+        spacing = {spacing}
+        width = {width}
+
+        [roughness]
+        landcover = "{valley.landcover.name}"
+        class_field = "cover"
+        channel_class = "channel"
+
+        [[events]]
+        name = "design"
+        discharge = {discharge}
+
+        [boundary]
+        regime = "subcritical"
+        downstream = {boundary}
+        """) + "\n" + cls + "\n" + extra
+    path = Path(folder) / "geoflow.toml"
+    path.write_text(text)
+    return path
