@@ -1,0 +1,184 @@
+"""Output writers at the edge of the pipeline: COG rasters, GeoPackages, CSV, JSON manifest.
+
+Every writer is atomic: the file is written under a temporary name in the same folder
+(``.<stem>.tmp-<pid><suffix>``) and moved over the final name with ``os.replace`` only
+when complete. A failed write leaves no temporary file and no new final file (an older
+final file, if any, is left as it was). Parent folders are created as needed.
+"""
+from __future__ import annotations
+
+import contextlib
+import json
+import math
+import os
+from pathlib import Path
+
+import numpy as np
+import rasterio
+import rasterio.shutil
+from rasterio.io import MemoryFile
+
+from .errors import OutputError
+
+PROFILE_COLUMNS = (
+    "reach_id", "event", "section_id", "chainage_m", "discharge_m3s", "bed_m", "wse_m", "energy_m",
+    "critical_wse_m", "velocity_ms", "froude", "alpha", "area_m2", "top_width_m", "friction_slope", "flags",
+)
+SECTION_COLUMNS = ("reach_id", "section_id", "chainage_m", "left_bank_station_m", "right_bank_station_m", "flags")
+EXTENT_COLUMNS = ("reach_id", "event")
+
+# printf formats per profile column; other float columns use "%.6g".
+_PROFILE_FORMATS = {
+    "chainage_m": "%.3f", "discharge_m3s": "%.6g", "bed_m": "%.4f", "wse_m": "%.4f", "energy_m": "%.4f",
+    "critical_wse_m": "%.4f", "velocity_ms": "%.4f", "froude": "%.4f", "alpha": "%.4f", "area_m2": "%.4f",
+    "top_width_m": "%.4f", "friction_slope": "%.6g",
+}
+
+
+@contextlib.contextmanager
+def atomic_path(path):
+    """Yield a temporary path beside ``path``; on success move it over ``path``, else delete it.
+
+    The temporary name keeps the suffix so format drivers recognise it.
+    """
+    path = Path(path)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{path}: cannot create the output folder ({exc}); check output_dir in [run]") from None
+    if path.is_dir():
+        raise OutputError(f"{path}: a folder is in the way of this output file; move it or change output_dir")
+    tmp = path.with_name(f".{path.stem}.tmp-{os.getpid()}{path.suffix}")
+    try:
+        yield tmp
+        os.replace(tmp, path)
+    except BaseException as exc:
+        for leftover in (tmp, *tmp.parent.glob(tmp.name + "-*")):     # incl. SQLite journals
+            with contextlib.suppress(OSError):
+                leftover.unlink()
+        if isinstance(exc, OSError) and not isinstance(exc, OutputError):
+            raise OutputError(f"{path}: cannot write ({exc}); check disk space and permissions") from None
+        raise
+
+
+def write_raster(path, array, transform, crs, nodata: float = -9999.0, blocksize: int = 256) -> Path:
+    """Write a 2D array as a float32 Cloud-Optimised GeoTIFF (DEFLATE, float predictor, overviews).
+
+    NaN becomes ``nodata``. Tiles are ``blocksize`` square (256 or 512). Overviews are built by
+    averaging; a raster no larger than one tile still gets one overview level.
+    """
+    arr = np.asarray(array, dtype=np.float32)
+    if arr.ndim != 2 or 0 in arr.shape:
+        raise OutputError(f"{path}: write_raster array must be 2D and non-empty, got shape {arr.shape}")
+    if blocksize not in (256, 512):
+        raise OutputError(f"{path}: write_raster blocksize must be 256 or 512, got {blocksize}")
+    arr = np.where(np.isnan(arr), np.float32(nodata), arr)
+    height, width = arr.shape
+    options = dict(COMPRESS="DEFLATE", PREDICTOR="YES", BLOCKSIZE=blocksize, OVERVIEWS="AUTO",
+                   RESAMPLING="AVERAGE")
+    if max(width, height) <= blocksize and min(width, height) >= 2:
+        options["OVERVIEW_COUNT"] = 1
+    path = Path(path)
+    with atomic_path(path) as tmp:
+        try:
+            with MemoryFile() as mem:
+                with mem.open(driver="GTiff", width=width, height=height, count=1, dtype="float32",
+                              crs=crs, transform=transform, nodata=nodata) as src:
+                    src.write(arr, 1)
+                with mem.open() as src:
+                    rasterio.shutil.copy(src, str(tmp), driver="COG", **options)
+        except rasterio.errors.RasterioError as exc:
+            raise OutputError(f"{path}: cannot write GeoTIFF ({exc}); check disk space and permissions") from None
+    return path
+
+
+def _format_column(values, fmt: str) -> np.ndarray:
+    """printf-format a float column; NaN becomes an empty field."""
+    v = np.asarray(values, dtype=np.float64)
+    out = np.char.mod(fmt, v).astype(object)
+    out[~np.isfinite(v)] = ""
+    return out
+
+
+def _join_flags(values) -> list[str]:
+    """Flags column to ';'-joined words ('' when none)."""
+    def one(f):
+        if f is None or (isinstance(f, float) and math.isnan(f)):
+            return ""
+        if isinstance(f, str):
+            return f
+        return ";".join(str(w) for w in f)
+    return [one(f) for f in values]
+
+
+def _ordered(df, required, where: Path):
+    """Columns ``required`` first (all must exist), then the rest in their given order."""
+    missing = [c for c in required if c not in df.columns]
+    if missing:
+        raise OutputError(f"{where}: columns missing from the table: {', '.join(missing)}")
+    return df[list(required) + [c for c in df.columns if c not in required]].copy()
+
+
+def write_profile_csv(path, df) -> Path:
+    """Write the profile table as CSV with the contract column order (extra columns after)."""
+    path = Path(path)
+    out = _ordered(df, PROFILE_COLUMNS, path)
+    for col in out.columns:
+        if col == "flags":
+            out[col] = _join_flags(out[col])
+        elif col in _PROFILE_FORMATS or out[col].dtype.kind == "f":
+            out[col] = _format_column(out[col], _PROFILE_FORMATS.get(col, "%.6g"))
+    with atomic_path(path) as tmp:
+        out.to_csv(tmp, index=False, lineterminator="\n")
+    return path
+
+
+def _write_gpkg(path, gdf, layer: str, required, promote_to_multi: bool) -> Path:
+    path = Path(path)
+    if gdf.crs is None:
+        raise OutputError(f"{path}: layer {layer!r} has no CRS; set the DEM CRS on the GeoDataFrame")
+    out = _ordered(gdf, list(required) + [gdf.geometry.name], path)
+    if "flags" in out.columns:
+        out["flags"] = _join_flags(out["flags"])
+    with atomic_path(path) as tmp:
+        try:
+            out.to_file(tmp, layer=layer, driver="GPKG", engine="pyogrio", promote_to_multi=promote_to_multi)
+        except Exception as exc:          # pyogrio/GDAL raise several types
+            raise OutputError(f"{path}: cannot write GeoPackage layer {layer!r} ({exc})") from None
+    return path
+
+
+def write_sections_gpkg(path, sections_gdf) -> Path:
+    """Write section lines to layer "sections" (replacing any existing file whole)."""
+    return _write_gpkg(path, sections_gdf, "sections", SECTION_COLUMNS, promote_to_multi=False)
+
+
+def write_extent_gpkg(path, extent_gdf) -> Path:
+    """Write flood-extent polygons (attributes reach_id, event) to layer "extent" as MultiPolygons."""
+    return _write_gpkg(path, extent_gdf, "extent", EXTENT_COLUMNS, promote_to_multi=True)
+
+
+def _plain(obj):
+    """JSON-safe copy: numpy scalars/arrays to Python, paths to str, NaN/inf to None."""
+    if isinstance(obj, dict):
+        return {str(k): _plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple, set)):
+        return [_plain(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _plain(obj.tolist())
+    if isinstance(obj, np.generic):
+        return _plain(obj.item())
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    if isinstance(obj, (str, int, float, bool)) or obj is None:
+        return obj
+    return str(obj)
+
+
+def write_manifest(path, manifest: dict) -> Path:
+    """Write a JSON manifest (UTF-8, indented, key order kept)."""
+    path = Path(path)
+    text = json.dumps(_plain(manifest), indent=2, allow_nan=False) + "\n"
+    with atomic_path(path) as tmp:
+        tmp.write_text(text, encoding="utf-8")
+    return path
