@@ -46,7 +46,7 @@ class Dem:
         """Integer window of the DEM grid covering ``bounds`` plus ``pad`` cells, clipped to the DEM."""
         left, bottom, right, top = bounds
         inv = ~self.transform
-        cols, rows = inv * (np.array([left, right, left, right]), np.array([top, top, bottom, bottom]))
+        cols, rows = apply_affine(inv, np.array([left, right, left, right]), np.array([top, top, bottom, bottom]))
         c0 = max(int(math.floor(np.min(cols))) - pad, 0)
         r0 = max(int(math.floor(np.min(rows))) - pad, 0)
         c1 = min(int(math.ceil(np.max(cols))) + pad, self.width)
@@ -83,7 +83,7 @@ class Dem:
         if x.size == 0:
             return out
         inv = ~self.transform
-        col_f, row_f = inv * (x.ravel(), y.ravel())
+        col_f, row_f = apply_affine(inv, x.ravel(), y.ravel())
         col_f = np.asarray(col_f) - 0.5
         row_f = np.asarray(row_f) - 0.5
         ok = np.isfinite(col_f) & np.isfinite(row_f)
@@ -115,8 +115,15 @@ class Dem:
         return flat.reshape(x.shape)
 
 
+def apply_affine(t: Affine, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(x', y') = t applied to arrays (x, y); plain numpy, independent of the affine operator API."""
+    x = np.asarray(x, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64)
+    return t.a * x + t.b * y + t.c, t.d * x + t.e * y + t.f
+
+
 def _bounds(transform: Affine, width: int, height: int) -> tuple[float, float, float, float]:
-    xs, ys = transform * (np.array([0, width, 0, width]), np.array([0, 0, height, height]))
+    xs, ys = apply_affine(transform, np.array([0, width, 0, width]), np.array([0, 0, height, height]))
     return float(np.min(xs)), float(np.min(ys)), float(np.max(xs)), float(np.max(ys))
 
 
