@@ -1,0 +1,205 @@
+"""Vector inputs at the edge of the pipeline: river centrelines and land-cover polygons.
+
+Only this module opens vector files (GeoPackage, Shapefile, GeoJSON, ... through geopandas
+with the pyogrio engine). Everything it returns is in the DEM's CRS: shapely geometries and
+plain numpy arrays. Every problem with a file becomes one :class:`InputDataError` line that
+names the file, the layer and the field at fault and says what to do.
+"""
+from __future__ import annotations
+
+import difflib
+from dataclasses import dataclass
+from functools import cached_property
+from pathlib import Path
+
+import numpy as np
+import pyogrio
+import pyproj
+import shapely
+from shapely.geometry import LineString
+
+from .errors import InputDataError
+
+_LINE_TYPES = ("LineString", "MultiLineString")
+_POLYGON_TYPES = ("Polygon", "MultiPolygon")
+
+
+@dataclass(frozen=True, eq=False)
+class LandCover:
+    """Land-cover polygons in the DEM CRS.
+
+    ``geometries`` is a shapely geometry array and ``classes`` the class name (str) of each
+    polygon, in layer order (overlaps are resolved to the first feature). ``path`` and
+    ``layer`` are kept for messages. The spatial index is built on first use and is not
+    pickled (Dask workers rebuild it).
+    """
+
+    geometries: np.ndarray
+    classes: np.ndarray
+    path: Path
+    layer: str | None = None
+    class_field: str = ""
+
+    @cached_property
+    def tree(self) -> shapely.STRtree:
+        """STRtree over ``geometries`` (built lazily, once per object)."""
+        return shapely.STRtree(self.geometries)
+
+    def __getstate__(self) -> dict:
+        state = dict(self.__dict__)
+        state.pop("tree", None)
+        return state
+
+
+def read_centrelines(path, crs, layer: str | None = None, id_field: str = "reach_id") -> list[tuple[str, LineString]]:
+    """Read river centrelines (drawn in the direction of flow) as ``[(reach_id, LineString), ...]``.
+
+    Lines are reprojected to ``crs`` (the DEM CRS), Z is dropped, and MultiLineStrings are
+    joined with ``shapely.line_merge(directed=True)`` (parts are never reversed, so the flow
+    direction is kept); a reach that stays multi-part is an error. Reach ids
+    are strings (integral numbers lose their ``.0``) and must be unique and non-empty.
+    """
+    path = Path(path)
+    gdf, where = _read_layer(path, crs, layer, [id_field], _LINE_TYPES, "line")
+    ids = _reach_ids(gdf[id_field].to_numpy(), where, id_field)
+    geoms = shapely.force_2d(np.asarray(gdf.geometry.values, dtype=object))
+    multi = shapely.get_type_id(geoms) == shapely.GeometryType.MULTILINESTRING
+    if np.any(multi):
+        geoms[multi] = shapely.line_merge(geoms[multi], directed=True)  # never reverses a part
+        still = np.flatnonzero(shapely.get_type_id(geoms) != shapely.GeometryType.LINESTRING)
+        if still.size:
+            bad = ", ".join(ids[still[:5]])
+            raise InputDataError(
+                f"{where}: centreline of reach {bad} has parts that do not join end to end in one direction; "
+                "draw each reach as one continuous line in the direction of flow"
+            )
+    short = np.flatnonzero(shapely.length(geoms) <= 0.0)
+    if short.size:
+        raise InputDataError(f"{where}: centreline of reach {', '.join(ids[short[:5]])} has zero length; redraw or delete it")
+    return [(str(i), g) for i, g in zip(ids, geoms)]
+
+
+def read_landcover(path, crs, class_field: str, layer: str | None = None, bbox=None) -> LandCover:
+    """Read land-cover polygons and their class names, reprojected to ``crs`` (the DEM CRS).
+
+    ``bbox`` = (left, bottom, right, top) in ``crs`` limits reading to features that touch
+    that box (useful for large layers). Invalid polygons are repaired with
+    ``shapely.make_valid``; empty class values are an error.
+    """
+    path = Path(path)
+    gdf, where = _read_layer(path, crs, layer, [class_field], _POLYGON_TYPES, "polygon", bbox=bbox)
+    values = gdf[class_field].to_numpy()
+    missing = np.flatnonzero([v is None or (isinstance(v, float) and np.isnan(v)) or str(v).strip() == "" for v in values])
+    if missing.size:
+        raise InputDataError(
+            f"{where}: field {class_field!r} is empty for {missing.size} feature(s) (first: feature {int(missing[0])}); "
+            "give every land-cover polygon a class"
+        )
+    geoms = shapely.force_2d(np.asarray(gdf.geometry.values, dtype=object))
+    invalid = ~shapely.is_valid(geoms)
+    if np.any(invalid):
+        geoms[invalid] = shapely.make_valid(geoms[invalid])
+    classes = np.array([_as_text(v) for v in values], dtype=str)
+    return LandCover(geometries=geoms, classes=classes, path=path, layer=layer, class_field=class_field)
+
+
+def _read_layer(path: Path, crs, layer, fields, allowed_types, kind, bbox=None):
+    """Validate and read one layer; return (GeoDataFrame in ``crs``, 'file (layer x)' label)."""
+    import geopandas as gpd  # heavy import kept at the edge
+
+    target = _target_crs(crs, path)
+    if not path.exists():
+        raise InputDataError(f"{path}: file not found; check the path in the config (relative to the config file)")
+    try:
+        layers = [str(name) for name in pyogrio.list_layers(path)[:, 0]]
+    except Exception as exc:  # pyogrio raises several GDAL-backed error types
+        raise InputDataError(f"{path}: cannot open as a vector file ({_one_line(exc)}); give a GeoPackage, Shapefile or GeoJSON") from None
+    if layer is None:
+        if len(layers) != 1:
+            raise InputDataError(f"{path}: holds {len(layers)} layers ({', '.join(layers) or 'none'}); name the layer to read in the config")
+        layer_name = layers[0]
+    else:
+        if str(layer) not in layers:
+            raise InputDataError(f"{path}: layer {layer!r} not found; layers present: {', '.join(layers) or 'none'}")
+        layer_name = str(layer)
+    where = f"{path} (layer {layer_name!r})"
+    try:
+        info = pyogrio.read_info(path, layer=layer_name)
+    except Exception as exc:
+        raise InputDataError(f"{where}: cannot read layer ({_one_line(exc)}); check the file is not damaged") from None
+    present = [str(f) for f in info["fields"]]
+    for field in fields:
+        if field not in present:
+            hint = difflib.get_close_matches(field, present, n=1)
+            extra = f" (did you mean {hint[0]!r}?)" if hint else ""
+            raise InputDataError(f"{where}: field {field!r} not found{extra}; fields present: {', '.join(present) or 'none'}")
+    if info["crs"] is None:
+        raise InputDataError(f"{where}: layer has no coordinate reference system; assign one (e.g. with ogr2ogr -a_srs) and retry")
+    kwargs = {}
+    if bbox is not None:
+        kwargs["bbox"] = gpd.GeoSeries([shapely.box(*bbox)], crs=target)
+    try:
+        gdf = gpd.read_file(path, layer=layer_name, engine="pyogrio", columns=list(fields), **kwargs)
+    except Exception as exc:
+        raise InputDataError(f"{where}: cannot read features ({_one_line(exc)}); check the file is not damaged") from None
+    _check_geometries(gdf, where + (f" within {tuple(bbox)}" if bbox is not None else ""), allowed_types, kind)
+    if gdf.crs != target:
+        gdf = gdf.to_crs(target)
+    return gdf, where
+
+
+def _check_geometries(gdf, where: str, allowed_types, kind: str) -> None:
+    geoms = np.asarray(gdf.geometry.values, dtype=object)
+    if geoms.size == 0:
+        raise InputDataError(f"{where}: layer has no features; give a layer with {kind} features")
+    null = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+    if np.any(null):
+        first = int(np.flatnonzero(null)[0])
+        raise InputDataError(
+            f"{where}: {int(null.sum())} feature(s) have a null or empty geometry (first: feature {first}); delete or redraw them"
+        )
+    types = shapely.get_type_id(geoms)
+    names = np.array(["Point", "LineString", "LinearRing", "Polygon", "MultiPoint", "MultiLineString",
+                      "MultiPolygon", "GeometryCollection"])[types]
+    bad = ~np.isin(names, allowed_types)
+    if np.any(bad):
+        found = ", ".join(sorted(set(names[bad])))
+        raise InputDataError(f"{where}: holds {found} geometries; a {kind} layer is needed ({' or '.join(allowed_types)})")
+
+
+def _reach_ids(values: np.ndarray, where: str, id_field: str) -> np.ndarray:
+    """Reach ids as strings; null, empty and duplicate ids are errors."""
+    out = []
+    for i, v in enumerate(values):
+        if v is None or (isinstance(v, float) and not np.isfinite(v)):
+            raise InputDataError(f"{where}: field {id_field!r} is empty for feature {i}; give every centreline a reach id")
+        s = _as_text(v)
+        if not s:
+            raise InputDataError(f"{where}: field {id_field!r} is empty for feature {i}; give every centreline a reach id")
+        out.append(s)
+    ids = np.array(out, dtype=object)
+    uniq, counts = np.unique(ids.astype(str), return_counts=True)
+    if np.any(counts > 1):
+        dup = ", ".join(uniq[counts > 1][:5])
+        raise InputDataError(f"{where}: field {id_field!r} has duplicate reach id(s) {dup}; give each centreline its own id")
+    return ids
+
+
+def _as_text(value) -> str:
+    """Attribute value as stripped text; integral floats lose their '.0' (3.0 -> '3')."""
+    if isinstance(value, (float, np.floating)) and float(value).is_integer():
+        value = int(value)
+    return str(value).strip()
+
+
+def _target_crs(crs, path: Path) -> pyproj.CRS:
+    if crs is None:
+        raise InputDataError(f"{path}: no target CRS given to reproject to; open the DEM first and pass its CRS")
+    try:
+        return pyproj.CRS.from_user_input(crs)
+    except pyproj.exceptions.CRSError as exc:
+        raise InputDataError(f"{path}: target CRS {crs!r} is not understood ({_one_line(exc)}); pass the DEM's CRS") from None
+
+
+def _one_line(exc: Exception) -> str:
+    return " ".join(str(exc).split())

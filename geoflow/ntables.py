@@ -1,0 +1,97 @@
+"""Reference values of Manning's n: a typical-value table and Cowan's composite method.
+
+Pure data and arithmetic; nothing here is applied automatically. The table helps users
+fill ``[roughness.classes.<name>]`` (take ``normal``; ``minimum``/``maximum`` bracket a
+sensitivity run). Values are s/m^(1/3) (the same number in SI and US customary units).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import RoughnessError
+
+_CHOW = "Chow (1959) Open-Channel Hydraulics, Table 5-6"
+
+
+@dataclass(frozen=True)
+class ReferenceN:
+    """One row of a typical-n table: cover description, minimum / normal / maximum n, source."""
+
+    key: str
+    description: str
+    minimum: float
+    normal: float
+    maximum: float
+    source: str
+
+
+def _row(key, description, lo, mid, hi, note=""):
+    return ReferenceN(key, description, lo, mid, hi, _CHOW + (f" ({note})" if note else ""))
+
+
+CHOW_1959 = (
+    # Natural minor streams (top width at flood stage < 100 ft), main channels.
+    _row("stream_clean_straight", "minor stream: clean, straight, full stage, no rifts or deep pools", 0.025, 0.030, 0.033),
+    _row("stream_straight_stones_weeds", "minor stream: as clean straight, more stones and weeds", 0.030, 0.035, 0.040),
+    _row("stream_clean_winding", "minor stream: clean, winding, some pools and shoals", 0.033, 0.040, 0.045),
+    _row("stream_winding_weeds_stones", "minor stream: winding, pools and shoals, some weeds and stones", 0.035, 0.045, 0.050),
+    _row("stream_winding_lower_stages", "minor stream: winding with weeds and stones, lower stages", 0.040, 0.048, 0.055),
+    _row("stream_winding_more_stones", "minor stream: winding with weeds, more stones", 0.045, 0.050, 0.060),
+    _row("stream_sluggish_weedy", "minor stream: sluggish reaches, weedy, deep pools", 0.050, 0.070, 0.080),
+    _row("stream_very_weedy", "minor stream: very weedy reaches or timbered floodways", 0.075, 0.100, 0.150),
+    _row("mountain_gravel_cobbles", "mountain stream: gravel, cobbles, few boulders on bottom", 0.030, 0.040, 0.050),
+    _row("mountain_cobbles_boulders", "mountain stream: cobbles with large boulders on bottom", 0.040, 0.050, 0.070),
+    # Flood plains.
+    _row("pasture_short_grass", "flood plain: pasture, no brush, short grass", 0.025, 0.030, 0.035),
+    _row("pasture_high_grass", "flood plain: pasture, no brush, high grass", 0.030, 0.035, 0.050),
+    _row("cultivated_no_crop", "flood plain: cultivated area, no crop", 0.020, 0.030, 0.040),
+    _row("mature_row_crops", "flood plain: cultivated area, mature row crops", 0.025, 0.035, 0.045),
+    _row("mature_field_crops", "flood plain: cultivated area, mature field crops", 0.030, 0.040, 0.050),
+    _row("scattered_brush", "flood plain: scattered brush, heavy weeds", 0.035, 0.050, 0.070),
+    _row("light_brush_winter", "flood plain: light brush and trees, in winter", 0.035, 0.050, 0.060),
+    _row("light_brush_summer", "flood plain: light brush and trees, in summer", 0.040, 0.060, 0.080),
+    _row("dense_brush_winter", "flood plain: medium to dense brush, in winter", 0.045, 0.070, 0.110),
+    _row("dense_brush_summer", "flood plain: medium to dense brush, in summer", 0.070, 0.100, 0.160),
+    _row("dense_willows", "flood plain: dense willows, summer, straight", 0.110, 0.150, 0.200),
+    _row("cleared_stumps", "flood plain: cleared land with tree stumps, no sprouts", 0.030, 0.040, 0.050),
+    _row("cleared_stumps_sprouts", "flood plain: cleared land with stumps, heavy growth of sprouts", 0.050, 0.060, 0.080),
+    _row("timber_below_branches", "flood plain: heavy stand of timber, little undergrowth, flood below branches",
+         0.080, 0.100, 0.120),
+    _row("timber_reaching_branches", "flood plain: heavy stand of timber, flood stage reaching branches", 0.100, 0.120, 0.160),
+    # Lined channels.
+    _row("concrete_trowel", "lined channel: concrete, trowel finish", 0.011, 0.013, 0.015, "from memory"),
+    _row("concrete_float", "lined channel: concrete, float finish", 0.013, 0.015, 0.016, "from memory"),
+)
+
+
+def reference_n(key: str) -> ReferenceN:
+    """Row of :data:`CHOW_1959` by key (case-insensitive); error lists the keys."""
+    rows = {r.key: r for r in CHOW_1959}
+    k = str(key).strip().lower()
+    if k not in rows:
+        raise RoughnessError(f"no reference n for {key!r}; known cover types: {', '.join(rows)}")
+    return rows[k]
+
+
+def cowan_n(n_b, n1=0.0, n2=0.0, n3=0.0, n4=0.0, m=1.0):
+    """Composite Manning's n by Cowan's method: n = (n_b + n1 + n2 + n3 + n4)·m.
+
+    n_b base value for the bed material; n1 surface irregularity; n2 variation of section
+    shape; n3 obstructions; n4 vegetation; m meandering (1.00 minor, 1.15 appreciable,
+    1.30 severe). Cowan (1956), Agricultural Engineering 37(7); as adopted by Arcement &
+    Schneider (1989), USGS Water-Supply Paper 2339. Works element-wise on arrays.
+    """
+    parts = {"n_b": n_b, "n1": n1, "n2": n2, "n3": n3, "n4": n4}
+    arrays = {k: np.asarray(v, dtype=np.float64) for k, v in parts.items()}
+    for k, v in arrays.items():
+        if np.any(~np.isfinite(v)) or np.any(v < 0):
+            raise RoughnessError(f"Cowan n: {k} = {parts[k]!r} must be a non-negative number")
+    if np.any(arrays["n_b"] <= 0):
+        raise RoughnessError(f"Cowan n: base value n_b = {n_b!r} must be positive")
+    mm = np.asarray(m, dtype=np.float64)
+    if np.any(~np.isfinite(mm)) or np.any(mm < 1.0):
+        raise RoughnessError(f"Cowan n: meander factor m = {m!r} must be >= 1 (1.00 minor to 1.30 severe)")
+    total = (arrays["n_b"] + arrays["n1"] + arrays["n2"] + arrays["n3"] + arrays["n4"]) * mm
+    return float(total) if total.ndim == 0 else total

@@ -1,0 +1,155 @@
+"""Land-cover overlay -> Manning's n and conveyance part per section segment.
+
+Each station segment (between consecutive ground samples) takes the class of the land-cover
+polygon containing its mid-point (shapely 2 ``STRtree.query`` with predicate
+``"intersects"``, so a mid-point on a shared edge still finds a polygon; where polygons
+overlap the first feature in layer order wins and a warning says so). Its n comes from the
+user's table (class name -> n), e.g. chosen from Chow (1959) *Open-Channel Hydraulics*,
+Table 5-6 (see :mod:`geoflow.ntables`).
+
+Parts: the channel is the contiguous run of ``channel_class`` segments nearest to the
+centre of the section (where the centreline crosses it); segments left of it are left
+overbank, right of it right overbank; channel-class segments away from that run (ponds,
+side arms) count as overbank. Without any channel cover the lowest ground point ± one
+sample step is taken as the channel and the section is flagged ``no_channel_cover``.
+"""
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Mapping
+
+import numpy as np
+import shapely
+
+from .errors import RoughnessError
+from .records import CHANNEL, LEFT_OVERBANK, RIGHT_OVERBANK, ReachGeometry
+from .sections import overbank_lengths
+
+GAP_CLASS = ""   # land-cover name given to segments in a gap filled with default_n
+
+
+def landcover_classes(cover) -> list[str]:
+    """Sorted list of the class names present in a :class:`geoflow.layers.LandCover`."""
+    return sorted({str(c) for c in np.asarray(cover.classes)})
+
+
+def assign_roughness(geom: ReachGeometry, cover, channel_class: str, n_table: Mapping,
+                     default_n: float | None = None, update_lengths: bool = True) -> ReachGeometry:
+    """Fill ``n``, ``landcover`` and ``part`` of every section of ``geom`` from the land cover.
+
+    ``n_table`` maps class name -> n (a number, or anything with an ``n`` attribute or key).
+    Segments in no polygon get ``default_n`` (class ``""``, flag ``landcover_gap``) or raise
+    :class:`RoughnessError`; so do classes missing from ``n_table`` when no ``default_n``.
+    With ``update_lengths`` the overbank lengths are recomputed from the bank stations
+    (:func:`geoflow.sections.overbank_lengths`).
+    """
+    rid = geom.reach_id
+    table = {str(k): _n_value(k, v) for k, v in n_table.items()}
+    mids, owner = _segment_midpoints(geom.sections)
+    cls, has_cover, overlaps = _classes_at(cover, mids)
+    warnings = list(geom.warnings)
+    if overlaps:
+        warnings.append(f"reach {rid}: {overlaps} segment mid-point(s) lie in overlapping land-cover polygons of "
+                        f"{cover.path}; the first feature in the layer was used")
+    n, unknown = _n_for(rid, cls, has_cover, owner, mids, geom.sections, cover, table, default_n)
+    if unknown:
+        warnings.append(f"reach {rid}: land-cover class(es) {', '.join(unknown)} have no Manning's n; "
+                        f"default_n = {default_n} used")
+    bounds = np.cumsum([0] + [s.station.size - 1 for s in geom.sections])
+    new_sections = []
+    for k, sec in enumerate(geom.sections):
+        sl = slice(bounds[k], bounds[k + 1])
+        part, found = _parts(cls[sl] == str(channel_class), sec.station, sec.elevation)
+        flags = list(sec.flags)
+        if not found:
+            flags.append("no_channel_cover")
+            warnings.append(f"reach {rid}: section {k} (chainage {sec.chainage:.1f} m) has no {channel_class!r} "
+                            "cover; the lowest ground point was taken as the channel")
+        if not has_cover[sl].all():
+            flags.append("landcover_gap")
+        new_sections.append(dataclasses.replace(sec, n=n[sl].copy(), landcover=cls[sl].copy(), part=part,
+                                                flags=tuple(flags)))
+    out = dataclasses.replace(geom, sections=tuple(new_sections), warnings=tuple(warnings))
+    if update_lengths:
+        out = dataclasses.replace(out, lengths=overbank_lengths(out))
+    return out
+
+
+def _n_value(name, value) -> float:
+    v = getattr(value, "n", None)
+    if v is None and isinstance(value, Mapping):
+        v = value.get("n")
+    if v is None:
+        v = value
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        raise RoughnessError(f"[roughness.classes.{name}] n = {value!r} is not a number; give Manning's n (s/m^(1/3))") from None
+    if not (np.isfinite(v) and v > 0):
+        raise RoughnessError(f"[roughness.classes.{name}] n = {v!r} must be positive")
+    return v
+
+
+def _segment_midpoints(sections) -> tuple[np.ndarray, np.ndarray]:
+    """(M, 2) mid-points of all station segments of all sections, and the section index of each."""
+    xy, owner = [], []
+    for k, sec in enumerate(sections):
+        start, end = np.asarray(sec.line.coords)[[0, -1]]
+        frac = 0.5 * (sec.station[:-1] + sec.station[1:]) / sec.station[-1]
+        xy.append(start + frac[:, None] * (end - start))
+        owner.append(np.full(frac.size, k))
+    return np.concatenate(xy), np.concatenate(owner)
+
+
+def _classes_at(cover, xy: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
+    """Class name at each point (first polygon in layer order), a has-cover mask, overlap count."""
+    hit_pt, hit_poly = cover.tree.query(shapely.points(xy), predicate="intersects")
+    order = np.lexsort((hit_poly, hit_pt))
+    hit_pt, hit_poly = hit_pt[order], hit_poly[order]
+    first_pt, first_idx, counts = np.unique(hit_pt, return_index=True, return_counts=True)
+    classes = np.full(len(xy), GAP_CLASS, dtype=object)
+    classes[first_pt] = np.asarray(cover.classes)[hit_poly[first_idx]]
+    has = np.zeros(len(xy), dtype=bool)
+    has[first_pt] = True
+    return classes.astype(str), has, int(np.sum(counts > 1))
+
+
+def _n_for(rid, cls, has_cover, owner, xy, sections, cover, table, default_n) -> tuple[np.ndarray, list[str]]:
+    """Manning's n per segment and the classes not in the table; gaps and those use default_n or raise."""
+    if not has_cover.all() and default_n is None:
+        g = int(np.flatnonzero(~has_cover)[0])
+        sec = sections[owner[g]]
+        raise RoughnessError(
+            f"reach {rid}: section {sec.section_id} (chainage {sec.chainage:.1f} m) has no land cover at "
+            f"x={xy[g, 0]:.1f}, y={xy[g, 1]:.1f} ({int((~has_cover).sum())} segment(s) in gaps); "
+            f"fill the gap in {cover.path} or set [roughness] default_n"
+        )
+    unknown = sorted(set(cls[has_cover]) - set(table))
+    if unknown and default_n is None:
+        names = ", ".join(unknown)
+        raise RoughnessError(
+            f"reach {rid}: land-cover class(es) {names} from {cover.path} have no Manning's n; add "
+            f"[roughness.classes.<name>] for {names} or set [roughness] default_n"
+        )
+    fallback = np.nan if default_n is None else _n_value("default_n", default_n)
+    lookup = np.array([table.get(c, fallback) for c in np.unique(cls)], dtype=np.float64)
+    return lookup[np.unique(cls, return_inverse=True)[1]], unknown
+
+
+def _parts(is_channel: np.ndarray, station: np.ndarray, elevation: np.ndarray) -> tuple[np.ndarray, bool]:
+    """Part code per segment (int8) and whether channel cover was found."""
+    m = is_channel.size
+    found = bool(is_channel.any())
+    if found:
+        edges = np.diff(np.concatenate(([0], is_channel.astype(np.int8), [0])))
+        starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)  # segment index ranges
+        centre = 0.5 * station[-1]
+        gap = np.maximum(station[starts] - centre, 0.0) + np.maximum(centre - station[stops], 0.0)
+        r = int(np.argmin(gap))
+        lo, hi = int(starts[r]), int(stops[r])
+    else:
+        low = int(np.argmin(elevation))
+        lo, hi = max(low - 1, 0), min(low + 1, m)
+    idx = np.arange(m)
+    part = np.where(idx < lo, LEFT_OVERBANK, np.where(idx >= hi, RIGHT_OVERBANK, CHANNEL)).astype(np.int8)
+    return part, found
