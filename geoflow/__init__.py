@@ -5,7 +5,10 @@ engineer; local codes, regulators and licensed practice govern their use.
 """
 __version__ = "0.1.0"
 
-__all__ = ["run", "check", "load_config", "__version__"]
+CAUTION = ("Screening-level 1D steady-flow estimates. Results must be reviewed by a qualified engineer; "
+           "local codes, regulators and licensed practice govern their use.")
+
+__all__ = ["run", "check", "load_config", "CAUTION", "__version__"]
 
 
 def __getattr__(name: str):

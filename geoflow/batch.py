@@ -1,49 +1,57 @@
-"""Reaches x events: validate everything first, then compute each reach and write the outputs.
+"""Reaches x events over one or many configs: check first, then compute on an engine, then assemble.
 
-``run()`` is the library entry point behind ``geoflow run`` (and ``geoflow.run``). Inputs are
-checked for every reach before anything is written, so a bad config leaves no output behind;
-after that a reach that fails is recorded in the manifest and the batch goes on.
+``run()`` is the library entry point behind ``geoflow run`` (and ``geoflow.run``).
+
+1. Plan: every config is loaded and its inputs opened and checked before anything is written;
+   a config error, or a config whose every reach is unusable, raises (nothing written).
+   Reaches that fail the cheap pre-check (e.g. centreline off the DEM) are recorded as failed.
+2. Compute: each reach is one task (tasks.compute_reach) run in this process, in a local
+   process pool (``workers > 1``) or on a Dask cluster (``scheduler`` address). Tasks get the
+   config path and a reach id, never arrays; results are identical whichever engine runs them.
+   The manifest is saved after every finished reach, so a killed run can be resumed.
+3. Assemble: profile.csv, sections.gpkg, inundation.gpkg and the final manifest are built from
+   the per-reach part files, in the order of the centreline layer.
 """
 from __future__ import annotations
 
-import hashlib
-import re
+import concurrent.futures as cf
+import logging
+import multiprocessing
 import sys
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import geopandas as gpd
 import pandas as pd
+import shapely
+from shapely.geometry import box
 
-from . import __version__, outputs, pipeline, report
+from . import CAUTION, assemble, manifest, pipeline
 from .config import Config, load_config
-from .errors import GeoflowError
+from .errors import GeometryError, GeoflowError
+from .naming import safe_name
 from .records import ReachGeometry
+from .tasks import compute_reach
 
-CAUTION = ("Screening-level 1D steady-flow estimates. Results must be reviewed by a qualified engineer; "
-           "local codes, regulators and licensed practice govern their use.")
+log = logging.getLogger("geoflow")
+LOG_NAME = "run.log"
 
 
 @dataclass
 class RunResult:
-    """What a run produced: per-reach results, the output folder and the paths written."""
+    """What a run of one config produced."""
 
     config: Config
     output_dir: Path
-    reaches: dict[str, pipeline.ReachResult] = field(default_factory=dict)
+    reaches: dict[str, dict] = field(default_factory=dict)     # reach id -> manifest entry
+    profile: pd.DataFrame | None = None                        # the rows of profile.csv
     paths: dict[str, Path] = field(default_factory=dict)
     elapsed_s: float = 0.0
-    crs: str | None = None                      # DEM CRS (WKT) of every output
+    reused_units: int = 0
 
     @property
     def failed(self) -> list[str]:
-        return [rid for rid, r in self.reaches.items() if r.status != "complete"]
-
-    @property
-    def profile(self) -> pd.DataFrame:
-        frames = [r.profile for r in self.reaches.values() if r.profile is not None]
-        return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=pipeline.PROFILE_COLUMNS)
+        return [rid for rid, r in self.reaches.items() if r.get("status") != "complete"]
 
 
 @dataclass
@@ -51,47 +59,102 @@ class CheckResult:
     config: Config
     inputs: pipeline.Inputs
     geometries: dict[str, ReachGeometry]
+    problems: dict[str, str] = field(default_factory=dict)
 
     def summary_lines(self) -> list[str]:
         cfg = self.config
-        lines = [f"config {cfg.path}: OK", f"DEM {cfg.terrain.dem.name}",
-                 f"{len(self.geometries)} reach(es), {len(cfg.events)} event(s): "
+        lines = [f"config {cfg.path}: OK", f"DEM {cfg.terrain.dem} ({self.inputs.dem.crs.to_string()}, "
+                 f"{self.inputs.dem.cell_size:g} m cells)",
+                 f"{len(self.geometries) + len(self.problems)} reach(es), {len(cfg.events)} event(s): "
                  + ", ".join(e.name for e in cfg.events)]
         for rid, g in self.geometries.items():
-            ch = g.sections[-1].chainage if g.sections else 0.0
             flagged = sum(1 for s in g.sections if s.flags)
-            lines.append(f"  reach {rid}: {ch:.0f} m, {len(g.sections)} sections, {flagged} flagged")
+            lines.append(f"  reach {rid}: {g.sections[-1].chainage:.0f} m, {len(g.sections)} sections, "
+                         f"{flagged} flagged")
             lines.extend(f"    warning: {w}" for w in g.warnings)
+        lines.extend(f"  reach {rid}: PROBLEM: {msg}" for rid, msg in self.problems.items())
         return lines
-
-
-def safe_name(text: str) -> str:
-    """Path-safe version of a reach id or event name (letters, digits, '_', '-', '.')."""
-    name = re.sub(r"[^A-Za-z0-9_.-]+", "_", str(text)).strip("._") or "reach"
-    return name
 
 
 def _as_config(config: str | Path | Config) -> Config:
     return config if isinstance(config, Config) else load_config(config)
 
 
+def precheck_reaches(cfg: Config, inputs: pipeline.Inputs) -> dict[str, str]:
+    """Cheap per-reach checks -> {reach_id: problem}. Raises when no reach is usable."""
+    names = [safe_name(r) for r, _ in inputs.reaches]
+    if len(set(names)) != len(names):
+        raise GeoflowError(f"{cfg.reaches.centrelines}: reach ids collide once made path-safe "
+                           f"({', '.join(r for r, _ in inputs.reaches)}); give them distinct letters/digits")
+    extent = box(*inputs.dem.bounds)
+    problems = {}
+    for rid, line in inputs.reaches:
+        if not shapely.contains(extent, line):
+            problems[rid] = (f"reach {rid!r}: centreline in {cfg.reaches.centrelines.name} runs outside the DEM "
+                             f"{cfg.terrain.dem.name}; trim the line to the DEM or use a DEM that covers it")
+    if problems and len(problems) == len(inputs.reaches):
+        first = next(iter(problems.values()))
+        more = f" (and {len(problems) - 1} more reach(es))" if len(problems) > 1 else ""
+        raise GeometryError(first + more)
+    return problems
+
+
 def check(config: str | Path | Config) -> CheckResult:
     """Validate config and inputs and cut every reach's sections; compute and write nothing."""
     cfg = _as_config(config)
     inputs = pipeline.open_inputs(cfg)
-    geoms = {rid: pipeline.build_geometry(cfg, inputs, rid, line) for rid, line in inputs.reaches}
-    names = [safe_name(r) for r in geoms]
-    if len(set(names)) != len(names):
-        raise GeoflowError(f"{cfg.reaches.centrelines}: reach ids {sorted(geoms)} collide once made path-safe; "
-                           "rename them to distinct letters/digits")
-    return CheckResult(config=cfg, inputs=inputs, geometries=geoms)
+    problems = precheck_reaches(cfg, inputs)
+    geoms = {}
+    for rid, line in inputs.reaches:
+        if rid in problems:
+            continue
+        try:
+            geoms[rid] = pipeline.build_geometry(cfg, inputs, rid, line)
+        except GeoflowError as exc:
+            problems[rid] = str(exc)
+    if not geoms:
+        raise GeometryError(next(iter(problems.values())))
+    return CheckResult(config=cfg, inputs=inputs, geometries=geoms, problems=problems)
+
+
+@dataclass
+class _Plan:
+    cfg: Config
+    inputs: pipeline.Inputs
+    manifest: manifest.Manifest
+    todo: dict[str, list[str]]          # reach id -> events to compute
+    result: RunResult
+
+
+def _plan(config, resume: bool) -> _Plan:
+    cfg = _as_config(config)
+    inputs = pipeline.open_inputs(cfg)
+    problems = precheck_reaches(cfg, inputs)
+    hashes = manifest.input_hashes(cfg)
+    previous = manifest.load_previous(cfg.run.output_dir) if resume else None
+    reuse = manifest.reusable_units(previous, cfg, hashes, safe_name) if resume else set()
+    man = manifest.Manifest.start(cfg, hashes, previous, reuse)
+    todo = {}
+    for rid, _ in inputs.reaches:
+        if rid in problems:
+            man.record_reach(rid, {"status": "failed", "error": problems[rid],
+                                   "events": {e.name: {"status": "failed", "error": problems[rid]}
+                                              for e in cfg.events}})
+            continue
+        events = [e.name for e in cfg.events if manifest.unit_key(rid, e.name) not in reuse]
+        if events:
+            todo[rid] = events
+        elif previous:
+            man.data["reaches"][rid] = previous.get("reaches", {}).get(rid, {"status": "complete"})
+    result = RunResult(config=cfg, output_dir=cfg.run.output_dir, reused_units=len(reuse))
+    return _Plan(cfg=cfg, inputs=inputs, manifest=man, todo=todo, result=result)
 
 
 class Progress:
     """One-line progress over reach x event units on stderr, with an ETA."""
 
     def __init__(self, total: int, enabled: bool):
-        self.total, self.done, self.enabled, self.t0 = total, 0, enabled, time.perf_counter()
+        self.total, self.done, self.enabled, self.t0 = max(total, 1), 0, enabled, time.perf_counter()
 
     def step(self, label: str, units: int = 1) -> None:
         self.done += units
@@ -99,108 +162,89 @@ class Progress:
             return
         el = time.perf_counter() - self.t0
         eta = el / self.done * (self.total - self.done) if self.done else 0.0
-        sys.stderr.write(f"\r[{self.done}/{self.total}] {label:<40.40} {el:6.1f} s elapsed, ETA {eta:5.1f} s")
+        sys.stderr.write(f"\r[{self.done}/{self.total}] {label:<44.44} {el:7.1f} s elapsed, ETA {eta:6.1f} s")
         if self.done >= self.total:
             sys.stderr.write("\n")
         sys.stderr.flush()
 
 
-def run(config: str | Path | Config, progress: bool = False) -> RunResult:
-    """Run every reach x event of a config; write the outputs of the output contract."""
+def _engine(workers: int, scheduler: str | None):
+    """(submit, as_completed, close) for the chosen engine."""
+    if scheduler:
+        from distributed import Client, as_completed
+        client = Client(scheduler, timeout="30s")
+        return (lambda *a: client.submit(compute_reach, *a, pure=False)), as_completed, client.close
+    if workers > 1:
+        pool = cf.ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"))
+        return (lambda *a: pool.submit(compute_reach, *a)), cf.as_completed, pool.shutdown
+    return (lambda *a: _Deferred(a)), iter, lambda: None
+
+
+class _Deferred:
+    """In-process engine: the task runs when its result is asked for (so progress stays live)."""
+
+    def __init__(self, args):
+        self.args = args
+
+    def result(self):
+        return compute_reach(*self.args)
+
+
+def _start_logging(out_dirs: list[Path]) -> list[logging.Handler]:
+    handlers = []
+    log.setLevel(logging.INFO)
+    for d in out_dirs:
+        d.mkdir(parents=True, exist_ok=True)
+        h = logging.FileHandler(d / LOG_NAME, mode="a", encoding="utf-8")
+        h.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+        log.addHandler(h)
+        handlers.append(h)
+    return handlers
+
+
+def run(config, workers: int = 1, scheduler: str | None = None, resume: bool = False,
+        progress: bool = False):
+    """Run every reach x event of one config (-> RunResult) or of a list of configs (-> list)."""
+    many = isinstance(config, (list, tuple))
+    plans = [_plan(c, resume) for c in (config if many else [config])]     # raises before writing
     t0 = time.perf_counter()
-    checked = check(config)           # raises before anything is written
-    cfg, inputs = checked.config, checked.inputs
-    lines = dict(inputs.reaches)
-    out = cfg.run.output_dir
-    result = RunResult(config=cfg, output_dir=out, crs=inputs.dem.crs.to_wkt())
-    bar = Progress(len(checked.geometries) * len(cfg.events), progress)
-    for rid, geom in checked.geometries.items():
-        res = pipeline.run_reach(cfg, inputs, rid, lines[rid], geom=geom)
-        result.reaches[rid] = res
-        if res.status == "complete":
-            try:
-                _write_reach(cfg, out, res)
-            except GeoflowError as exc:
-                res.status, res.error = "failed", str(exc)
-        bar.step(f"reach {rid}: {res.status}", len(cfg.events))
-    result.elapsed_s = time.perf_counter() - t0
-    _write_run_outputs(cfg, result)
-    return result
+    handlers = _start_logging([p.cfg.run.output_dir for p in plans])
+    try:
+        _compute(plans, workers, scheduler, progress)
+        for p in plans:
+            p.result.elapsed_s = time.perf_counter() - t0
+            assemble.finish(p.cfg, p.inputs, p.manifest, p.result)
+            log.info("run %s finished in %.1f s: %d reach(es) failed", p.cfg.run.name, p.result.elapsed_s,
+                     len(p.result.failed))
+    finally:
+        for h in handlers:
+            log.removeHandler(h)
+            h.close()
+    results = [p.result for p in plans]
+    return results if many else results[0]
 
 
-def _write_reach(cfg: Config, out: Path, res: pipeline.ReachResult) -> None:
-    rdir = out / "rasters" / safe_name(res.reach_id)
-    for ev, m in res.maps.items():
-        for kind in ("wse", "depth"):
-            if kind in cfg.mapping.outputs:
-                outputs.write_raster(rdir / f"{safe_name(ev)}_{kind}.tif", getattr(m, kind), m.transform, m.crs)
-    if "report" in cfg.mapping.outputs:
-        report.write_report(out / "report" / f"{safe_name(res.reach_id)}.html", res.reach_id, res.geometry,
-                            res.profile, [e.name for e in cfg.events], caution=CAUTION)
-
-
-def _sections_frame(result: RunResult, crs) -> gpd.GeoDataFrame:
-    rows = []
-    for rid, res in result.reaches.items():
-        if res.geometry is None:
-            continue
-        wse = {}
-        if res.profile is not None:
-            for ev, grp in res.profile.groupby("event", sort=False):
-                wse[ev] = grp.set_index("section_id")["wse_m"]
-        for s in res.geometry.sections:
-            lb, rb = s.bank_stations
-            row = {"reach_id": rid, "section_id": s.section_id, "chainage_m": s.chainage,
-                   "left_bank_station_m": lb, "right_bank_station_m": rb, "bed_m": s.bed_elevation,
-                   "flags": ";".join(s.flags), "geometry": s.line}
-            row.update({f"wse_{safe_name(ev)}_m": float(w.get(s.section_id, float("nan"))) for ev, w in wse.items()})
-            rows.append(row)
-    return gpd.GeoDataFrame(rows, geometry="geometry", crs=crs)
-
-
-def _extent_frame(result: RunResult, crs) -> gpd.GeoDataFrame:
-    rows = []
-    for rid, res in result.reaches.items():
-        for ev, m in res.maps.items():
-            rows.extend({"reach_id": rid, "event": ev, "area_m2": p.area, "geometry": p} for p in m.extent)
-    return gpd.GeoDataFrame(rows, geometry="geometry", crs=crs) if rows else gpd.GeoDataFrame(
-        {"reach_id": [], "event": [], "area_m2": []}, geometry=[], crs=crs)
-
-
-def file_sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        for chunk in iter(lambda: f.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
-
-
-def _input_paths(cfg: Config) -> dict[str, Path]:
-    paths = {"dem": cfg.terrain.dem, "centrelines": cfg.reaches.centrelines, "landcover": cfg.roughness.landcover}
-    return {k: p for k, p in paths.items() if p.is_file()}
-
-
-def _write_run_outputs(cfg: Config, result: RunResult) -> None:
-    out = result.output_dir
-    crs = result.crs
-    outputs.write_profile_csv(out / "profile.csv", result.profile)
-    outputs.write_sections_gpkg(out / "sections.gpkg", _sections_frame(result, crs))
-    if "extent" in cfg.mapping.outputs:
-        outputs.write_extent_gpkg(out / "inundation.gpkg", _extent_frame(result, crs))
-    manifest = {
-        "geoflow_version": __version__,
-        "caution": CAUTION,
-        "config": str(cfg.path),
-        "config_sha256": cfg.sha256,
-        "inputs": {k: {"path": str(p), "sha256": file_sha256(p)} for k, p in _input_paths(cfg).items()},
-        "events": [e.name for e in cfg.events],
-        "elapsed_s": round(result.elapsed_s, 3),
-        "reaches": {
-            rid: {"status": r.status, "error": r.error, "sections": len(r.geometry.sections) if r.geometry else 0,
-                  "timings_s": {k: round(v, 4) for k, v in r.timings.items()}, "warnings": r.warnings}
-            for rid, r in result.reaches.items()
-        },
-    }
-    outputs.write_manifest(out / "manifest.json", manifest)
-    result.paths = {"profile": out / "profile.csv", "sections": out / "sections.gpkg",
-                    "extent": out / "inundation.gpkg", "manifest": out / "manifest.json"}
+def _compute(plans: list[_Plan], workers: int, scheduler: str | None, progress: bool) -> None:
+    total = sum(len(ev) for p in plans for ev in p.todo.values())
+    bar = Progress(total, progress)
+    submit, as_completed, close = _engine(workers, scheduler)
+    try:
+        futures = {}
+        for p in plans:
+            p.manifest.save()
+            log.info("run %s: %d reach(es) to compute, %d unit(s) reused (config %s, caution: %s)",
+                     p.cfg.run.name, len(p.todo), p.result.reused_units, p.cfg.path, CAUTION)
+            for rid, events in p.todo.items():
+                futures[submit(str(p.cfg.path), p.cfg.sha256, rid, events)] = (p, rid)
+        for fut in as_completed(list(futures)):
+            p, rid = futures[fut]
+            info = fut.result()
+            p.manifest.record_reach(rid, info)
+            p.manifest.save()
+            level = logging.INFO if info["status"] == "complete" else logging.ERROR
+            log.log(level, "reach %s: %s%s", rid, info["status"], f" - {info['error']}" if info["error"] else "")
+            if "traceback" in info:
+                log.error("%s", info["traceback"])
+            bar.step(f"{p.cfg.run.name}/{rid}: {info['status']}", len(p.todo[rid]))
+    finally:
+        close()

@@ -5,7 +5,8 @@ import argparse
 import sys
 
 from . import __version__
-from .batch import CAUTION, check, run
+from . import CAUTION
+from .batch import check, run
 from .errors import GeoflowError
 
 DESCRIPTION = (
@@ -23,7 +24,14 @@ def _parser() -> argparse.ArgumentParser:
     r = sub.add_parser("run", help="compute every reach x event of a config and write all outputs",
                        description=f"Compute every reach x event and write the outputs.\n\nCAUTION: {CAUTION}",
                        formatter_class=argparse.RawDescriptionHelpFormatter)
-    r.add_argument("config", help="path to the TOML config")
+    r.add_argument("config", nargs="+", help="path(s) to TOML configs; every reach of each is run")
+    r.add_argument("--workers", type=int, default=1, metavar="N",
+                   help="local worker processes (default 1: run in this process)")
+    r.add_argument("--scheduler", metavar="ADDRESS",
+                   help="Dask distributed scheduler address (e.g. tcp://10.0.0.5:8786); workers must see the "
+                        "same file system")
+    r.add_argument("--resume", action="store_true",
+                   help="skip reach x event units that manifest.json records complete with the same config and inputs")
     r.add_argument("--quiet", action="store_true", help="no progress display")
     c = sub.add_parser("check", help="validate the config and inputs, list reaches, sections and events; "
                                      "compute and write nothing",
@@ -40,20 +48,27 @@ def main(argv: list[str] | None = None) -> int:
             for line in check(args.config).summary_lines():
                 print(line)
             return 0
-        result = run(args.config, progress=not args.quiet)
+        if args.workers < 1:
+            raise GeoflowError(f"--workers must be 1 or more, got {args.workers}")
+        results = run(list(args.config), workers=args.workers, scheduler=args.scheduler, resume=args.resume,
+                      progress=not args.quiet)
     except GeoflowError as exc:
         print(f"geoflow: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
-        print("geoflow: interrupted", file=sys.stderr)
+        print("geoflow: interrupted; run again with --resume to continue", file=sys.stderr)
         return 130
-    for rid, r in result.reaches.items():
-        status = "ok" if r.status == "complete" else f"FAILED: {r.error}"
-        print(f"reach {rid}: {status}")
-    print(f"outputs in {result.output_dir} ({result.elapsed_s:.1f} s)")
+    failed = 0
+    for result in results:
+        for rid, r in result.reaches.items():
+            print(f"{result.config.run.name}: reach {rid}: " + ("ok" if r.get("status") == "complete"
+                                                                 else f"FAILED: {r.get('error')}"))
+        failed += len(result.failed)
+        print(f"outputs in {result.output_dir} ({result.elapsed_s:.1f} s"
+              + (f", {result.reused_units} unit(s) reused" if result.reused_units else "") + ")")
     print(f"CAUTION: {CAUTION}")
-    if result.failed:
-        print(f"geoflow: {len(result.failed)} reach(es) failed; see manifest.json", file=sys.stderr)
+    if failed:
+        print(f"geoflow: {failed} reach(es) failed; see manifest.json and run.log", file=sys.stderr)
         return 1
     return 0
 

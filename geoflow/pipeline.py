@@ -123,21 +123,27 @@ def solver_options(cfg: Config) -> SolverOptions:
                          contraction=h.contraction, expansion=h.expansion)
 
 
-def solve_reach(cfg: Config, geom: ReachGeometry) -> dict:
-    """Steady profile of every event on one reach -> {event name: hydraulics Profile}."""
-    tables = [build_table(s.station, s.elevation, s.n, s.part) for s in geom.sections]
+def build_tables(geom: ReachGeometry) -> list:
+    """Hydraulic property tables of every section (shared by all events of the reach)."""
+    return [build_table(s.station, s.elevation, s.n, s.part) for s in geom.sections]
+
+
+def solve_event(cfg: Config, geom: ReachGeometry, tables: list, event: Event):
+    """Steady profile of one event on one reach (hydraulics Profile)."""
     chainage = np.array([s.chainage for s in geom.sections])
     down, up = cfg.boundary.for_reach(geom.reach_id)
-    opts = solver_options(cfg)
-    out = {}
-    for ev in cfg.events:
-        q = discharge_along(ev, geom.reach_id, chainage)
-        try:
-            out[ev.name] = solve_profile(tables, geom.lengths, q, downstream=to_boundary(down),
-                                         upstream=to_boundary(up), options=opts)
-        except GeoflowError as exc:
-            raise HydraulicsError(f"reach {geom.reach_id!r}, event {ev.name!r}: {exc}") from None
-    return out
+    q = discharge_along(event, geom.reach_id, chainage)
+    try:
+        return solve_profile(tables, geom.lengths, q, downstream=to_boundary(down), upstream=to_boundary(up),
+                             options=solver_options(cfg))
+    except GeoflowError as exc:
+        raise HydraulicsError(f"reach {geom.reach_id!r}, event {event.name!r}: {exc}") from None
+
+
+def solve_reach(cfg: Config, geom: ReachGeometry) -> dict:
+    """Steady profile of every event on one reach -> {event name: hydraulics Profile}."""
+    tables = build_tables(geom)
+    return {ev.name: solve_event(cfg, geom, tables, ev) for ev in cfg.events}
 
 
 def profile_rows(geom: ReachGeometry, event: str, prof) -> pd.DataFrame:

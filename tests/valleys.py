@@ -62,7 +62,7 @@ def make_valley(folder: Path, length=1200.0, bottom_width=12.0, side_slope=2.0, 
     yc = y0 + half_width
     transform = from_origin(x0 - 20 * cell, y0 + 2 * half_width, cell, cell)
     cols, rows = np.meshgrid(np.arange(ncol) + 0.5, np.arange(nrow) + 0.5)
-    x, y = transform * (cols, rows)
+    x, y = x0 - 20 * cell + cols * cell, y0 + 2 * half_width - rows * cell
     v = Valley(folder / "dem.tif", folder / "centrelines.gpkg", folder / "landcover.gpkg", length,
                bottom_width, side_slope, bank_height, slope, x0, yc, z_down)
     off = np.abs(y - yc)
@@ -80,7 +80,7 @@ def make_valley(folder: Path, length=1200.0, bottom_width=12.0, side_slope=2.0, 
     top = bottom_width / 2 + side_slope * bank_height
     full = box(x0 - 20 * cell, y0, x0 + length + 20 * cell, y0 + 2 * half_width)
     chan = box(x0 - 20 * cell, yc - top, x0 + length + 20 * cell, yc + top)
-    polys, names = [chan], [classes[0]]
+    polys, names = [chan if len(classes) > 1 else full], [classes[0]]
     if len(classes) > 1:
         polys.append(full.difference(chan))
         names.append(classes[1])

@@ -1,0 +1,80 @@
+"""Build the run-level outputs from the per-reach part files a run (or earlier runs) wrote.
+
+Order is the centreline layer's reach order and the config's event order, so the same inputs
+give byte-identical tables whichever engine computed the reaches and in whatever order.
+"""
+from __future__ import annotations
+
+import time
+
+import geopandas as gpd
+import pandas as pd
+
+from . import outputs
+from .config import Config
+from .manifest import Manifest, part_paths, unit_key
+from .naming import safe_name
+from .tasks import read_profile_parts
+
+
+def finish(cfg: Config, inputs, man: Manifest, result) -> None:
+    """Write profile.csv, sections.gpkg, inundation.gpkg and the final manifest for one config."""
+    out = cfg.run.output_dir
+    units = man.data["units"]
+    order = [rid for rid, _ in inputs.reaches]
+    done = {rid: [e.name for e in cfg.events if units.get(unit_key(rid, e.name), {}).get("status") == "complete"]
+            for rid in order}
+    profiles = []
+    for rid in order:
+        prof = read_profile_parts(cfg, rid) if done[rid] else None
+        if prof is not None:
+            profiles.append(prof[prof["event"].isin(done[rid])])
+    profile = pd.concat(profiles, ignore_index=True) if profiles else pd.DataFrame(columns=outputs.PROFILE_COLUMNS)
+    profile["flags"] = profile["flags"].fillna("") if len(profile) else profile["flags"]
+    crs = inputs.dem.crs.to_wkt()
+    result.paths["profile"] = outputs.write_profile_csv(out / "profile.csv", profile)
+    result.paths["sections"] = outputs.write_sections_gpkg(out / "sections.gpkg", _sections(cfg, order, profile, crs))
+    if "extent" in cfg.mapping.outputs:
+        result.paths["extent"] = outputs.write_extent_gpkg(out / "inundation.gpkg", _extents(cfg, done, crs))
+    man.data["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
+    man.data["elapsed_s"] = round(result.elapsed_s, 3)
+    man.data["failed_reaches"] = sorted(r for r, v in man.data["reaches"].items() if v.get("status") != "complete")
+    man.save()
+    result.paths["manifest"] = man.path
+    result.profile = profile
+    result.reaches = {rid: man.data["reaches"].get(rid, {"status": "failed", "error": "not computed"})
+                      for rid in order}
+
+
+def _sections(cfg: Config, order: list[str], profile: pd.DataFrame, crs: str) -> gpd.GeoDataFrame:
+    frames = []
+    for rid in order:
+        path = part_paths(cfg.run.output_dir, safe_name(rid))["sections"]
+        if not path.is_file():
+            continue
+        gdf = gpd.read_file(path, layer="sections")
+        gdf["reach_id"] = gdf["reach_id"].astype(str)
+        gdf["flags"] = gdf["flags"].fillna("")
+        mine = profile[profile["reach_id"] == rid] if len(profile) else profile
+        for ev in cfg.events:
+            rows = mine[mine["event"] == ev.name] if len(mine) else mine
+            if len(rows):
+                gdf[f"wse_{safe_name(ev.name)}_m"] = gdf["section_id"].map(rows.set_index("section_id")["wse_m"])
+        frames.append(gdf)
+    if not frames:
+        return gpd.GeoDataFrame({c: [] for c in outputs.SECTION_COLUMNS}, geometry=[], crs=crs)
+    return gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), geometry="geometry", crs=crs)
+
+
+def _extents(cfg: Config, done: dict[str, list[str]], crs: str) -> gpd.GeoDataFrame:
+    frames = []
+    for rid, events in done.items():
+        for ev in events:
+            path = part_paths(cfg.run.output_dir, safe_name(rid), safe_name(ev))["extent"]
+            if path.is_file():
+                frames.append(gpd.read_file(path, layer="extent"))
+    if not frames:
+        return gpd.GeoDataFrame({"reach_id": [], "event": [], "area_m2": []}, geometry=[], crs=crs)
+    gdf = pd.concat(frames, ignore_index=True)
+    gdf["reach_id"] = gdf["reach_id"].astype(str)
+    return gpd.GeoDataFrame(gdf, geometry="geometry", crs=crs)
