@@ -132,6 +132,8 @@ def _plan(config, resume: bool) -> _Plan:
     problems = precheck_reaches(cfg, inputs)
     hashes = manifest.input_hashes(cfg)
     previous = manifest.load_previous(cfg.run.output_dir) if resume else None
+    if resume:
+        manifest.clear_stale_temporaries(cfg.run.output_dir)
     reuse = manifest.reusable_units(previous, cfg, hashes, safe_name) if resume else set()
     man = manifest.Manifest.start(cfg, hashes, previous, reuse)
     todo = {}
@@ -234,6 +236,9 @@ def _compute(plans: list[_Plan], workers: int, scheduler: str | None, progress: 
             p.manifest.save()
             log.info("run %s: %d reach(es) to compute, %d unit(s) reused (config %s, caution: %s)",
                      p.cfg.run.name, len(p.todo), p.result.reused_units, p.cfg.path, CAUTION)
+            for rid, entry in p.manifest.data["reaches"].items():
+                if entry.get("status") == "failed":
+                    log.error("reach %s: failed the pre-check - %s", rid, entry.get("error"))
             for rid, events in p.todo.items():
                 futures[submit(str(p.cfg.path), p.cfg.sha256, rid, events)] = (p, rid)
         for fut in as_completed(list(futures)):

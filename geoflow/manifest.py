@@ -105,3 +105,16 @@ def reusable_units(previous: dict | None, cfg: Config, hashes: dict, safe) -> se
         if all(p.is_file() for p in files):
             keep.add(key)
     return keep
+
+
+def clear_stale_temporaries(out_dir: Path) -> int:
+    """Delete temporary files (``.<name>.tmp-<pid>...``) a killed run left in the output folder."""
+    count = 0
+    if out_dir.is_dir():
+        for p in out_dir.rglob(".*.tmp-*"):
+            try:
+                p.unlink()
+                count += 1
+            except OSError:
+                pass
+    return count

@@ -12,6 +12,7 @@ from pathlib import Path
 import geopandas as gpd
 import numpy as np
 import rasterio
+import shapely
 from rasterio.transform import from_origin
 from scipy.optimize import brentq
 from shapely.geometry import LineString, box
@@ -53,33 +54,40 @@ class Valley:
 
 def make_valley(folder: Path, length=1200.0, bottom_width=12.0, side_slope=2.0, bank_height=4.0,
                 slope=0.001, half_width=100.0, cell=1.0, crs=CRS, centreline_crs=None,
-                classes=("channel",), z_down=50.0) -> Valley:
-    """Write dem.tif, centrelines.gpkg and landcover.gpkg for a straight trapezoidal valley."""
+                classes=("channel",), z_down=50.0, n_reaches=1) -> Valley:
+    """Write dem.tif, centrelines.gpkg and landcover.gpkg for a straight trapezoidal valley.
+
+    With ``n_reaches`` > 1 the DEM holds that many identical parallel valleys (strips of
+    2*half_width, stacked northwards), with reaches "r1", "r2", ...; the Valley describes r1.
+    """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     x0, y0 = 500000.0, 4000000.0
-    ncol, nrow = int(length / cell) + 40, int(2 * half_width / cell)
+    ncol, nrow = int(length / cell) + 40, int(2 * half_width * n_reaches / cell)
     yc = y0 + half_width
-    transform = from_origin(x0 - 20 * cell, y0 + 2 * half_width, cell, cell)
+    top_y = y0 + 2 * half_width * n_reaches
+    transform = from_origin(x0 - 20 * cell, top_y, cell, cell)
     cols, rows = np.meshgrid(np.arange(ncol) + 0.5, np.arange(nrow) + 0.5)
-    x, y = x0 - 20 * cell + cols * cell, y0 + 2 * half_width - rows * cell
+    x, y = x0 - 20 * cell + cols * cell, top_y - rows * cell
     v = Valley(folder / "dem.tif", folder / "centrelines.gpkg", folder / "landcover.gpkg", length,
                bottom_width, side_slope, bank_height, slope, x0, yc, z_down)
-    off = np.abs(y - yc)
+    off = np.abs(np.mod(y - y0, 2 * half_width) - half_width)
     depth_below_bank = np.clip(bank_height - (off - bottom_width / 2) / side_slope, 0.0, bank_height)
     z = v.bed_at(x) + bank_height - depth_below_bank
     z += np.clip(off - (bottom_width / 2 + side_slope * bank_height + 40.0), 0, None) * 0.05  # valley walls
     with rasterio.open(v.dem, "w", driver="GTiff", width=ncol, height=nrow, count=1, dtype="float32",
                        crs=crs, transform=transform, nodata=-9999.0) as ds:
         ds.write(z.astype("float32"), 1)
-    line = LineString([(x0, yc), (x0 + length, yc)])
-    cl = gpd.GeoDataFrame({"reach_id": ["r1"]}, geometry=[line], crs=crs)
+    lines = [LineString([(x0, yc + 2 * half_width * k), (x0 + length, yc + 2 * half_width * k)])
+             for k in range(n_reaches)]
+    cl = gpd.GeoDataFrame({"reach_id": [f"r{k + 1}" for k in range(n_reaches)]}, geometry=lines, crs=crs)
     if centreline_crs:
         cl = cl.to_crs(centreline_crs)
     cl.to_file(v.centrelines, layer="centrelines", driver="GPKG")
     top = bottom_width / 2 + side_slope * bank_height
-    full = box(x0 - 20 * cell, y0, x0 + length + 20 * cell, y0 + 2 * half_width)
-    chan = box(x0 - 20 * cell, yc - top, x0 + length + 20 * cell, yc + top)
+    full = box(x0 - 20 * cell, y0, x0 + length + 20 * cell, top_y)
+    chan = shapely.union_all([box(x0 - 20 * cell, yc + 2 * half_width * k - top, x0 + length + 20 * cell,
+                                  yc + 2 * half_width * k + top) for k in range(n_reaches)])
     polys, names = [chan if len(classes) > 1 else full], [classes[0]]
     if len(classes) > 1:
         polys.append(full.difference(chan))
