@@ -50,6 +50,11 @@ class SectionsConfig:
     spacing: float
     width: float
     sample_step: float | None = None
+    reaches: Mapping[str, "SectionsConfig"] = field(default_factory=lambda: MappingProxyType({}))
+
+    def for_reach(self, reach_id: str) -> "SectionsConfig":
+        """The per-reach override ([sections.reaches.<id>]) or these defaults."""
+        return self.reaches.get(reach_id, self)
 
 
 @dataclass(frozen=True)
@@ -266,12 +271,29 @@ def _read_sections(r: _Reader, doc: dict) -> SectionsConfig | None:
     t = r.table(doc, "sections", "[sections]")
     if t is None:
         return None
-    r.known(t, ("spacing", "width", "sample_step"), "[sections]")
-    spacing = r.value(t, "spacing", "[sections]", "number positive", required=True)
-    width = r.value(t, "width", "[sections]", "number positive", required=True)
-    step = r.value(t, "sample_step", "[sections]", "number positive")
+    r.known(t, ("spacing", "width", "sample_step", "reaches"), "[sections]")
+    base = _read_section_keys(r, t, "[sections]", None)
+    overrides = {}
+    for rid, sub in (r.table(t, "reaches", "[sections.reaches]", required=False) or {}).items():
+        where = f"[sections.reaches.{rid}]"
+        if not isinstance(sub, dict):
+            r.problem(where, "must be a table with spacing, width and/or sample_step")
+            continue
+        r.known(sub, ("spacing", "width", "sample_step"), where)
+        if base is not None and (o := _read_section_keys(r, sub, where, base)) is not None:
+            overrides[str(rid)] = o
+    if base is None:
+        return None
+    return SectionsConfig(base.spacing, base.width, base.sample_step, reaches=MappingProxyType(overrides))
+
+
+def _read_section_keys(r: _Reader, t: dict, where: str, base: SectionsConfig | None) -> SectionsConfig | None:
+    need = base is None
+    spacing = r.value(t, "spacing", where, "number positive", required=need, default=base and base.spacing)
+    width = r.value(t, "width", where, "number positive", required=need, default=base and base.width)
+    step = r.value(t, "sample_step", where, "number positive", default=base and base.sample_step)
     if width is not None and step is not None and step >= width / 4:
-        r.problem("[sections] sample_step", f"{step:g} m is too coarse for a {width:g} m wide section; use at most width/4")
+        r.problem(f"{where} sample_step", f"{step:g} m is too coarse for a {width:g} m wide section; use at most width/4")
     if spacing is None or width is None:
         return None
     return SectionsConfig(spacing=spacing, width=width, sample_step=step)

@@ -71,7 +71,7 @@ class Manifest:
 
     def record_reach(self, reach_id: str, info: dict) -> None:
         self.data["reaches"][reach_id] = {k: info.get(k) for k in ("status", "error", "sections", "warnings",
-                                                                   "timings_s", "flow_summary")}
+                                                                   "timings_s")}
         for ev, unit in (info.get("events") or {}).items():
             self.data["units"][unit_key(reach_id, ev)] = unit
 

@@ -83,6 +83,10 @@ def _check_events(cfg: Config, reach_ids: list[str]) -> None:
         for ch in ev.changes:
             if ch.reach is not None and ch.reach not in known:
                 raise ConfigError(f"{cfg.path}: [[events]] {ev.name!r} changes names unknown reach {ch.reach!r}")
+    for rid in cfg.sections.reaches:
+        if rid not in known:
+            raise ConfigError(f"{cfg.path}: [sections.reaches.{rid}] names a reach that is not in "
+                              f"{cfg.reaches.centrelines.name} (reaches: {', '.join(sorted(known))})")
     for rid in cfg.boundary.reaches:
         if rid not in known:
             raise ConfigError(f"{cfg.path}: [boundary.reaches.{rid}] names a reach that is not in "
@@ -91,8 +95,8 @@ def _check_events(cfg: Config, reach_ids: list[str]) -> None:
 
 def build_geometry(cfg: Config, inputs: Inputs, reach_id: str, line) -> ReachGeometry:
     """Cut and sample cross-sections of one reach and give each segment its Manning's n."""
-    geom = sections.cut_sections(reach_id, line, inputs.dem, cfg.sections.spacing, cfg.sections.width,
-                                 sample_step=cfg.sections.sample_step)
+    sc = cfg.sections.for_reach(reach_id)
+    geom = sections.cut_sections(reach_id, line, inputs.dem, sc.spacing, sc.width, sample_step=sc.sample_step)
     return roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
                                       default_n=cfg.roughness.default_n)
 

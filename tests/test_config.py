@@ -112,3 +112,14 @@ def test_cli_subprocess_has_no_traceback_and_help_has_caution(tmp_path, valley):
     assert "Traceback" not in proc.stderr and "[sections] spacing" in proc.stderr
     helptext = subprocess.run([sys.executable, "-m", "geoflow.cli", "--help"], capture_output=True, text=True).stdout
     assert "qualified engineer" in helptext and "local codes" in helptext
+
+
+def test_per_reach_section_overrides_inherit_defaults(tmp_path, valley):
+    path = good_config(tmp_path, valley, extra="[sections.reaches.r1]\nwidth = 80.0\n")
+    cfg = load_config(path)
+    assert cfg.sections.for_reach("r1").width == 80.0
+    assert cfg.sections.for_reach("r1").spacing == 50.0
+    assert cfg.sections.for_reach("other").width == 120.0
+    edit(path, "width = 80.0", "widht = 80.0")
+    with pytest.raises(ConfigError, match=r"\[sections.reaches.r1\] widht"):
+        load_config(path)
