@@ -30,30 +30,44 @@ window is snapped to multiples of k cells from the DEM origin and the ground is 
 averaged (k x k mean of the valid DEM cells), so the coarse grid stays aligned to the DEM.
 Other values raise ConfigError naming ``[mapping] cell_size``.
 
-Block-wise processing (later issue): to map a reach larger than memory, split the window
-into blocks overlapping by one cell, label wet cells per block, then join labels across
-block edges with a union-find over pairs of wet labels that face each other (8-neighbour,
-including the corners) and keep every class that holds a seeded label. Only the label
-images of the edge rows/columns need to stay in memory between passes.
+Large reaches: :func:`write_reach_maps` runs the same computation block by block
+(:mod:`geoflow.mapblocks`: per-block labels joined across block edges with a union-find)
+and streams the rasters into Cloud-Optimised GeoTIFFs, so memory is bounded by the block
+size, not by the reach. :func:`map_reach` is the same engine with the whole window as one
+block (or ``block`` cells) kept in memory; both give the same cells.
+
+Velocity (optional): see :class:`VelocityInputs`.
 """
 from __future__ import annotations
 
+import contextlib
+import difflib
 import math
-import warnings
 from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
 
 import numpy as np
+import rasterio
 import shapely
 from affine import Affine
 from rasterio.crs import CRS
 from rasterio.features import rasterize, shapes
 from rasterio.windows import Window
 from scipy import ndimage
-from shapely.geometry import Polygon, shape
+from shapely.geometry import shape
 
-from .errors import ConfigError, GeometryError
+from . import outputs
+from .errors import ConfigError, GeometryError, RoughnessError
+from .mapblocks import Grid, Surface, point_segment_distance
+from .mapjoin import outline, run_blocks
+
+__all__ = ["ReachMap", "MapSummary", "VelocityInputs", "map_reach", "write_reach_maps", "wse_surface",
+           "point_segment_distance", "connected_to_seed", "extent_polygons"]
 
 PAD_CELLS = 3
+MAP_KINDS = ("wse", "depth", "velocity")
+GDAL_CACHE_MB = 96            # GDAL block cache while writing block-wise (bounds memory)
 _EIGHT = np.ones((3, 3), dtype=bool)
 
 
@@ -64,7 +78,8 @@ class ReachMap:
     ``wse`` and ``depth`` are float32 (rows, cols) arrays in m, NaN where dry or outside the
     mapped area; ``transform`` is the affine of the window; ``extent`` holds valid shapely
     Polygons in the DEM CRS; ``wet_area_m2`` counts connected wet cells x cell area;
-    ``max_depth`` is in m (0.0 when nothing is wet).
+    ``max_depth`` is in m (0.0 when nothing is wet); ``velocity`` (m/s, float32) only when
+    velocity inputs were given, else None.
     """
 
     transform: Affine
@@ -74,31 +89,197 @@ class ReachMap:
     extent: list
     wet_area_m2: float
     max_depth: float
+    velocity: np.ndarray | None = None
 
 
-def map_reach(dem, geom, wse_at_section, cell_size: float | None = None, pad: int = PAD_CELLS) -> ReachMap:
-    """Map the water surface of one reach onto the DEM grid (see module docstring).
+@dataclass(frozen=True, eq=False)
+class MapSummary:
+    """What :func:`write_reach_maps` wrote: grid (transform, CRS, (rows, cols)), outline
+    polygons, wet area (m2), largest depth (m) and the paths written, by kind."""
+
+    transform: Affine
+    crs: CRS
+    shape: tuple
+    extent: list
+    wet_area_m2: float
+    max_depth: float
+    paths: dict
+
+
+@dataclass(frozen=True, eq=False)
+class VelocityInputs:
+    """Inputs of the depth-averaged velocity raster (m/s).
+
+    Method: the friction slope Sf of each section (from the profile computation) is
+    interpolated between sections exactly like the WSE; each wet cell then carries the
+    Manning velocity of a wide strip of its own depth, v = (1/n) d^(2/3) Sf^(1/2)
+    (Manning's equation with hydraulic radius ~ local depth d; Chow 1959, Open-Channel
+    Hydraulics, ch. 5-6). The discharge per unit width v·d = (1/n) d^(5/3) Sf^(1/2) is the
+    local conveyance per unit width times Sf^(1/2), so integrating v·d across a section gives
+    the section's Manning discharge when the section is wide (R ~ d); for narrow sections the
+    integral exceeds it by about the ratio sum(d^(5/3) dx) / (A R^(2/3)) (a few % for
+    width/depth > 40). Cells with NaN n or NaN Sf have no velocity.
+
+    Manning's n per cell, first that is given: ``n_grid(window, transform)`` returning an
+    (rows, cols) array on an output block (``window`` of the reach output grid,
+    ``transform`` its affine); or ``landcover`` = (polygons, n values) rasterised per block
+    with ``default_n`` (or NaN) where no polygon lies; or ``default_n`` everywhere.
+    """
+
+    friction_slope: np.ndarray
+    n_grid: Callable | None = None
+    landcover: tuple | None = None
+    default_n: float | None = None
+
+    def n_on_block(self, window: Window, transform: Affine) -> np.ndarray:
+        """Manning's n on one output block (see class docstring)."""
+        shape_rc = (int(window.height), int(window.width))
+        fill = np.nan if self.default_n is None else float(self.default_n)
+        if self.n_grid is not None:
+            return np.broadcast_to(np.asarray(self.n_grid(window, transform), dtype=np.float64), shape_rc)
+        if self.landcover is None:
+            return np.full(shape_rc, fill)
+        polys = np.asarray(self.landcover[0], dtype=object)
+        nvals = np.asarray(self.landcover[1], dtype=np.float64)
+        left, top = transform.c, transform.f
+        right, bottom = left + transform.a * shape_rc[1], top + transform.e * shape_rc[0]
+        b = shapely.bounds(polys)
+        sel = np.flatnonzero((b[:, 0] <= right) & (b[:, 2] >= left) & (b[:, 1] <= top) & (b[:, 3] >= bottom))
+        if sel.size == 0:
+            return np.full(shape_rc, fill)
+        return rasterize(list(zip(polys[sel], nvals[sel])), out_shape=shape_rc, transform=transform,
+                         fill=fill, dtype="float64")
+
+    def on_block(self, window: Window, transform: Affine, depth: np.ndarray, sf: np.ndarray) -> np.ndarray:
+        """v = (1/n) d^(2/3) Sf^(1/2) on a block (NaN where dry or n/Sf unknown)."""
+        n = self.n_on_block(window, transform)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            v = np.power(depth, 2.0 / 3.0) * np.sqrt(np.where(sf >= 0, sf, np.nan)) / np.where(n > 0, n, np.nan)
+        return v
+
+
+@dataclass(frozen=True)
+class _Context:
+    dem: object
+    surface: Surface
+    centreline: object
+    cell: float
+    velocity: VelocityInputs | None
+
+
+def map_reach(dem, geom, wse_at_section, cell_size: float | None = None, pad: int = PAD_CELLS,
+              block: int | None = None, velocity: VelocityInputs | None = None) -> ReachMap:
+    """Map the water surface of one reach onto the DEM grid, in memory (see module docstring).
 
     dem: geoflow.terrain.Dem; geom: ReachGeometry; wse_at_section: (N,) m, one per section;
     cell_size: output cell size in DEM CRS units (None = DEM cell size; otherwise an integer
-    multiple of it); pad: cells added around the section bounds.
+    multiple of it); pad: cells added around the section bounds; block: block size in cells
+    (None = the whole window as one block); velocity: optional :class:`VelocityInputs`.
     """
-    wse_at_section = _check_inputs(geom, wse_at_section)
+    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity)
+    kinds = ("wse", "depth") + (("velocity",) if velocity is not None else ())
+    arrays = {k: np.full(grid.shape, np.nan, dtype=np.float32) for k in kinds}
+    res = run_blocks(ctx, grid, _Sink({k: _ArrayWindows(a) for k, a in arrays.items()}))
+    return ReachMap(transform=grid.transform, crs=dem.crs, wse=arrays["wse"], depth=arrays["depth"],
+                    extent=res.extent, wet_area_m2=res.wet_area_m2, max_depth=res.max_depth,
+                    velocity=arrays.get("velocity"))
+
+
+class _ArrayWindows:
+    """In-memory counterpart of outputs.BlockWriter: write/read windows of one array."""
+
+    def __init__(self, array: np.ndarray):
+        self.array = array
+
+    def __call__(self, values, window) -> None:
+        self.array[window.toslices()] = values
+
+    def read(self, window) -> np.ndarray:
+        return self.array[window.toslices()].copy()
+
+
+class _Sink:
+    """Where the engine puts blocks: one window writer per output kind."""
+
+    def __init__(self, writers: dict):
+        self.writers = writers
+
+    def write(self, layers: dict, window) -> None:
+        for kind, w in self.writers.items():
+            w(layers[kind], window)
+
+    def clear(self, window, mask: np.ndarray) -> None:
+        """Set no data where ``mask`` inside ``window`` (read, modify, write back)."""
+        for w in self.writers.values():
+            values = w.read(window)
+            values[mask] = np.nan
+            w(values, window)
+
+
+def write_reach_maps(dem, geom, wse_at_section, paths: dict, cell_size: float | None = None, block: int = 2048,
+                     velocity: VelocityInputs | None = None, pad: int = PAD_CELLS) -> MapSummary:
+    """Map one reach block by block and write its rasters as Cloud-Optimised GeoTIFFs.
+
+    paths: {"wse" | "depth" | "velocity": output path}, any subset; each raster is float32
+    on the reach window of the DEM grid (or the coarser ``cell_size`` grid), nodata -9999,
+    written block-wise into a temporary tiled GeoTIFF and published as a COG with overviews
+    atomically (:func:`geoflow.outputs.block_raster_writer`). Only one block of ``block``
+    x ``block`` cells is in memory at a time (plus GDAL's cache, set to
+    ``GDAL_CACHE_MB``). Same cells as :func:`map_reach` for any block size.
+    Returns a :class:`MapSummary`.
+    """
+    paths = _check_paths(geom, paths, velocity)
+    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity)
+    rows, cols = grid.shape
+    tile = 512 if min(rows, cols) >= 4096 else 256
+    with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB * 1024 * 1024), contextlib.ExitStack() as stack:
+        writers = {k: stack.enter_context(outputs.block_raster_writer(p, cols, rows, grid.transform, dem.crs,
+                                                                      blocksize=tile))
+                   for k, p in paths.items()}
+        res = run_blocks(ctx, grid, _Sink(writers))
+    return MapSummary(transform=grid.transform, crs=dem.crs, shape=grid.shape, extent=res.extent,
+                      wet_area_m2=res.wet_area_m2, max_depth=res.max_depth, paths=dict(paths))
+
+
+def _check_paths(geom, paths, velocity) -> dict:
+    """Output paths by kind; unknown kinds are refused with a did-you-mean suggestion."""
+    out = {}
+    for kind, p in dict(paths).items():
+        if kind not in MAP_KINDS:
+            near = difflib.get_close_matches(str(kind), MAP_KINDS, n=1)
+            hint = f"; did you mean {near[0]!r}?" if near else ""
+            raise ConfigError(f"reach {geom.reach_id}: unknown map output {kind!r} (known: "
+                              f"{', '.join(MAP_KINDS)}){hint}")
+        out[kind] = Path(p)
+    if "velocity" in out and velocity is None:
+        raise ConfigError(f"reach {geom.reach_id}: a velocity raster was asked for without velocity inputs "
+                          "(friction slope per section and Manning's n); pass velocity=VelocityInputs(...)")
+    return out
+
+
+def _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity) -> tuple[_Context, Grid]:
+    """Validated inputs -> engine context and output grid."""
+    wse = _check_inputs(geom, wse_at_section)
+    values = wse[None, :]
+    if velocity is not None:
+        sf = np.asarray(velocity.friction_slope, dtype=np.float64)
+        if sf.shape != wse.shape:
+            raise GeometryError(f"reach {geom.reach_id}: {sf.size} friction slopes given for {wse.size} "
+                                "cross-sections; give one per section")
+        if velocity.n_grid is None and velocity.landcover is None and velocity.default_n is None:
+            raise RoughnessError(f"reach {geom.reach_id}: velocity mapping needs Manning's n; give n_grid, "
+                                 "landcover or default_n")
+        values = np.vstack([wse, sf])
     factor = _cell_factor(dem, cell_size)
-    ground, transform = _read_ground(dem, geom, factor, pad)
-    wse = wse_surface(geom, wse_at_section, transform, ground.shape)
-    with np.errstate(invalid="ignore"):
-        wet = np.isfinite(ground) & np.isfinite(wse) & (wse - ground > 0)
-    seed = rasterize([(geom.centreline, 1)], out_shape=ground.shape, transform=transform,
-                     fill=0, all_touched=True, dtype="uint8").astype(bool)
-    connected = connected_to_seed(wet, seed)
-    depth = np.where(connected, wse - ground, np.nan).astype(np.float32)
-    wse_out = np.where(connected, wse, np.nan).astype(np.float32)
-    cell_area = abs(transform.a * transform.e)
-    wet_area = float(np.count_nonzero(connected)) * cell_area
-    max_depth = float(np.nanmax(depth)) if wet_area > 0 else 0.0
-    return ReachMap(transform=transform, crs=dem.crs, wse=wse_out, depth=depth,
-                    extent=extent_polygons(connected, transform), wet_area_m2=wet_area, max_depth=max_depth)
+    win, transform, shape_rc = _reach_window(dem, geom, factor, pad)
+    size = max(shape_rc) if block is None else int(block)
+    if size < 2:
+        raise ConfigError(f"reach {geom.reach_id}: block size {block} is too small; use at least 2 cells "
+                          "(256 to 4096 are typical)")
+    grid = Grid(dem_window=win, transform=transform, shape=shape_rc, factor=factor, block=size)
+    ctx = _Context(dem=dem, surface=Surface(geom.sections, values), centreline=shapely.force_2d(geom.centreline),
+                   cell=float(max(abs(transform.a), abs(transform.e))), velocity=velocity)
+    return ctx, grid
 
 
 def _check_inputs(geom, wse_at_section) -> np.ndarray:
@@ -127,8 +308,8 @@ def _cell_factor(dem, cell_size) -> int:
     return k
 
 
-def _read_ground(dem, geom, factor: int, pad: int) -> tuple[np.ndarray, Affine]:
-    """Ground elevation (m) on the reach window, block-averaged by ``factor``; and its transform."""
+def _reach_window(dem, geom, factor: int, pad: int) -> tuple[Window, Affine, tuple[int, int]]:
+    """DEM window of the reach (multiples of ``factor``), output-grid transform and shape."""
     coords = np.concatenate([np.asarray(s.line.coords)[:, :2] for s in geom.sections])
     bounds = (coords[:, 0].min(), coords[:, 1].min(), coords[:, 0].max(), coords[:, 1].max())
     win = dem.window_for(bounds, pad=pad * factor)
@@ -144,70 +325,18 @@ def _read_ground(dem, geom, factor: int, pad: int) -> tuple[np.ndarray, Affine]:
             raise GeometryError(f"reach {geom.reach_id}: DEM {dem.path} is smaller than one output cell; "
                                 "reduce [mapping] cell_size")
         win = Window(c0, r0, c1 - c0, r1 - r0)
-    z = dem.read(win)
-    transform = dem.window_transform(win)
-    if factor > 1:
-        blocks = z.reshape(z.shape[0] // factor, factor, z.shape[1] // factor, factor)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)   # all-NaN blocks stay NaN
-            z = np.nanmean(blocks, axis=(1, 3))
-        transform = transform @ Affine.scale(factor)
-    return z, transform
+    transform = dem.window_transform(win) @ Affine.scale(factor)
+    return win, transform, (int(win.height) // factor, int(win.width) // factor)
 
 
 def wse_surface(geom, wse_at_section: np.ndarray, transform: Affine, shape_rc: tuple[int, int]) -> np.ndarray:
     """WSE (m, float64) interpolated between consecutive sections; NaN outside every quad."""
-    sections = geom.sections
-    quads = []
-    for i in range(len(sections) - 1):
-        if not (np.isfinite(wse_at_section[i]) and np.isfinite(wse_at_section[i + 1])):
-            continue
-        ring = list(sections[i].line.coords) + list(sections[i + 1].line.coords)[::-1]
-        quad = _polygonal(shapely.make_valid(Polygon([c[:2] for c in ring])))
-        if quad is not None:
-            quads.append((quad, i))
-    out = np.full(shape_rc, np.nan)
-    if not quads:
-        return out
-    # Later shapes overwrite earlier ones: burn in reverse so the lowest index wins.
-    label = rasterize(quads[::-1], out_shape=shape_rc, transform=transform, fill=-1, dtype="int32")
-    rows, cols = np.nonzero(label >= 0)
-    idx = label[rows, cols]
-    x, y = transform @ (cols + 0.5, rows + 0.5)
-    ends = np.array([_end_points(s.line) for s in sections])     # (N, 4): x0, y0, x1, y1
-    d_up = point_segment_distance(x, y, ends[idx])
-    d_dn = point_segment_distance(x, y, ends[idx + 1])
-    total = d_up + d_dn
-    w_up = np.divide(d_dn, total, out=np.ones_like(total), where=total > 0)
-    out[rows, cols] = w_up * wse_at_section[idx] + (1.0 - w_up) * wse_at_section[idx + 1]
-    return out
-
-
-def _polygonal(geom):
-    """Polygon parts of ``geom`` joined into one (Multi)Polygon, or None when there is no area."""
-    parts = shapely.get_parts(shapely.get_parts(geom))
-    parts = parts[(shapely.get_type_id(parts) == 3) & (shapely.area(parts) > 0)]
-    return shapely.union_all(parts) if len(parts) else None
-
-
-def _end_points(line) -> tuple[float, float, float, float]:
-    """First and last vertex of a section line (sections are straight 2-point lines)."""
-    c = np.asarray(line.coords)
-    return float(c[0, 0]), float(c[0, 1]), float(c[-1, 0]), float(c[-1, 1])
-
-
-def point_segment_distance(x: np.ndarray, y: np.ndarray, seg: np.ndarray) -> np.ndarray:
-    """Euclidean distance from points (x, y) to segments ``seg[:, [x0, y0, x1, y1]]``, row by row."""
-    x0, y0, x1, y1 = seg[:, 0], seg[:, 1], seg[:, 2], seg[:, 3]
-    dx, dy = x1 - x0, y1 - y0
-    len2 = dx * dx + dy * dy
-    t = np.divide((x - x0) * dx + (y - y0) * dy, len2, out=np.zeros_like(len2), where=len2 > 0)
-    t = np.clip(t, 0.0, 1.0)
-    return np.hypot(x - (x0 + t * dx), y - (y0 + t * dy))
+    surface = Surface(geom.sections, np.asarray(wse_at_section, dtype=np.float64))
+    return surface.interpolate(transform, 0, 0, tuple(shape_rc))[0]
 
 
 def connected_to_seed(wet: np.ndarray, seed: np.ndarray) -> np.ndarray:
-    """Wet cells 8-connected to at least one wet seed cell."""
+    """Wet cells 8-connected to at least one wet seed cell (whole array in memory)."""
     labels, count = ndimage.label(wet, structure=_EIGHT)
     if count == 0:
         return np.zeros_like(wet, dtype=bool)
@@ -221,10 +350,5 @@ def extent_polygons(mask: np.ndarray, transform: Affine) -> list:
     """Outline polygons of ``mask`` (DEM CRS): simplified to half a cell, valid, no parts < 1 cell."""
     if not mask.any():
         return []
-    cell = max(abs(transform.a), abs(transform.e))
     geoms = [shape(g) for g, _ in shapes(mask.astype(np.uint8), mask=mask, transform=transform, connectivity=8)]
-    arr = shapely.make_valid(shapely.simplify(np.array(geoms, dtype=object), cell / 2.0, preserve_topology=True))
-    parts = shapely.get_parts(shapely.get_parts(arr))
-    parts = parts[shapely.get_type_id(parts) == 3]                 # polygons only
-    parts = parts[shapely.area(parts) >= abs(transform.a * transform.e)]
-    return list(parts)
+    return outline(geoms, transform)

@@ -74,10 +74,7 @@ def write_raster(path, array, transform, crs, nodata: float = -9999.0, blocksize
         raise OutputError(f"{path}: write_raster blocksize must be 256 or 512, got {blocksize}")
     arr = np.where(np.isnan(arr), np.float32(nodata), arr)
     height, width = arr.shape
-    options = dict(COMPRESS="DEFLATE", PREDICTOR="YES", BLOCKSIZE=blocksize, OVERVIEWS="AUTO",
-                   RESAMPLING="AVERAGE")
-    if max(width, height) <= blocksize and min(width, height) >= 2:
-        options["OVERVIEW_COUNT"] = 1
+    options = cog_options(width, height, blocksize)
     path = Path(path)
     with atomic_path(path) as tmp:
         try:
@@ -90,6 +87,77 @@ def write_raster(path, array, transform, crs, nodata: float = -9999.0, blocksize
         except rasterio.errors.RasterioError as exc:
             raise OutputError(f"{path}: cannot write GeoTIFF ({exc}); check disk space and permissions") from None
     return path
+
+
+def cog_options(width: int, height: int, blocksize: int = 256) -> dict:
+    """Creation options of the GDAL COG driver used by every raster writer here.
+
+    DEFLATE with the float predictor, ``blocksize`` tiles, averaged overviews down to one
+    tile; a raster no larger than one tile still gets one overview level.
+    """
+    options = dict(COMPRESS="DEFLATE", PREDICTOR="YES", BLOCKSIZE=blocksize, OVERVIEWS="AUTO",
+                   RESAMPLING="AVERAGE", BIGTIFF="IF_SAFER")
+    if max(width, height) <= blocksize and min(width, height) >= 2:
+        options["OVERVIEW_COUNT"] = 1
+    return options
+
+
+def tiled_gtiff_options(blocksize: int = 256) -> dict:
+    """Creation options of the temporary tiled GeoTIFF that block-wise writers fill first."""
+    return dict(driver="GTiff", tiled=True, blockxsize=blocksize, blockysize=blocksize, compress="DEFLATE",
+                predictor=3, BIGTIFF="IF_SAFER")
+
+
+class BlockWriter:
+    """Window writer of :func:`block_raster_writer`: call it to write, ``read`` to read back."""
+
+    def __init__(self, dataset, nodata: float):
+        self._ds, self._nodata = dataset, np.float32(nodata)
+
+    def __call__(self, array, window) -> None:
+        """Write ``array`` (NaN = no data) to ``window``."""
+        arr = np.asarray(array, dtype=np.float32)
+        self._ds.write(np.where(np.isnan(arr), self._nodata, arr), 1, window=window)
+
+    def read(self, window) -> np.ndarray:
+        """float32 values written so far in ``window`` (NaN = no data)."""
+        arr = self._ds.read(1, window=window)
+        return np.where(arr == self._nodata, np.float32(np.nan), arr)
+
+
+@contextlib.contextmanager
+def block_raster_writer(path, width: int, height: int, transform, crs, nodata: float = -9999.0,
+                        blocksize: int = 256):
+    """Write a large float32 raster window by window, then publish it as a COG atomically.
+
+    Yields a :class:`BlockWriter` ``w``: ``w(array, window)`` writes ``array`` (float, NaN =
+    no data) to ``window`` (a rasterio Window of this raster) of a temporary tiled GeoTIFF
+    (DEFLATE, predictor 3, ``blocksize`` tiles, :func:`tiled_gtiff_options`) beside
+    ``path``; a window may be written again (the later data wins) and ``w.read(window)``
+    reads back. Windows never written read as no data. On normal exit the temporary file is
+    streamed into a Cloud-Optimised GeoTIFF with overviews (``rasterio.shutil.copy``, driver
+    "COG", :func:`cog_options`) under a temporary name and moved over ``path``; on error
+    nothing new is left behind. Memory is bounded by the window written and GDAL's block
+    cache (``GDAL_CACHEMAX``).
+    """
+    path = Path(path)
+    if blocksize not in (256, 512):
+        raise OutputError(f"{path}: block_raster_writer blocksize must be 256 or 512, got {blocksize}")
+    if width < 1 or height < 1:
+        raise OutputError(f"{path}: block_raster_writer needs a non-empty raster, got {height} x {width}")
+    with atomic_path(path) as tmp:
+        build = tmp.with_name(tmp.name + "-tiled.tif")
+        try:
+            with rasterio.open(build, "w+", width=width, height=height, count=1, dtype="float32", crs=crs,
+                               transform=transform, nodata=nodata, **tiled_gtiff_options(blocksize)) as dst:
+                yield BlockWriter(dst, nodata)
+            with rasterio.open(build) as src:
+                rasterio.shutil.copy(src, str(tmp), driver="COG", **cog_options(width, height, blocksize))
+        except rasterio.errors.RasterioError as exc:
+            raise OutputError(f"{path}: cannot write GeoTIFF ({exc}); check disk space and permissions") from None
+        finally:
+            with contextlib.suppress(OSError):
+                build.unlink()
 
 
 def _format_column(values, fmt: str) -> np.ndarray:

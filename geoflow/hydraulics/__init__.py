@@ -1,0 +1,18 @@
+"""Pure hydraulic engine: numpy/scipy only, no file I/O, no GIS objects.
+
+- ``geometry``: section property tables (area, wetted perimeter, top width, conveyance per
+  subdivision, alpha, beta, specific force), exact at any water-surface elevation.
+- ``critical``: critical WSE as the minimum of specific energy (compound sections included).
+- ``boundaries``: ``Boundary`` conditions and normal depth.
+- ``step`` / ``roots``: one standard-step energy balance; vectorised bracketed root finding.
+- ``solver``: ``solve_profile`` / ``solve_events`` for subcritical, supercritical and mixed
+  regimes; ``profile``: the ``Profile`` result record.
+"""
+from geoflow.hydraulics.boundaries import Boundary, normal_wse
+from geoflow.hydraulics.critical import critical_wse
+from geoflow.hydraulics.geometry import SectionTable, build_table, properties
+from geoflow.hydraulics.profile import Profile
+from geoflow.hydraulics.solver import SolverOptions, solve_events, solve_profile
+
+__all__ = ["Boundary", "Profile", "SectionTable", "SolverOptions", "build_table",
+           "critical_wse", "normal_wse", "properties", "solve_events", "solve_profile"]
