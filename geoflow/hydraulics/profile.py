@@ -1,0 +1,98 @@
+"""The result record of a steady profile and its assembly from solved water levels."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from geoflow.hydraulics.geometry import properties, specific_force
+from geoflow.hydraulics.step import CRITICAL, NO_CONVERGENCE
+
+
+@dataclass(frozen=True, eq=False)
+class Profile:
+    """A steady water-surface profile; every array has one value per section, ordered upstream
+    -> downstream (part arrays are (N, 3): left overbank, channel, right overbank). SI units.
+    Froude number: mean velocity over sqrt(g A / T). ``specific_force``: beta Q^2/(gA) + A ybar."""
+
+    wse: np.ndarray
+    energy: np.ndarray
+    critical_wse: np.ndarray
+    velocity: np.ndarray
+    froude: np.ndarray
+    alpha: np.ndarray
+    area: np.ndarray
+    top_width: np.ndarray
+    wetted_perimeter: np.ndarray
+    conveyance: np.ndarray
+    friction_slope: np.ndarray
+    discharge: np.ndarray
+    regime: np.ndarray
+    flags: tuple
+    part_discharge: np.ndarray
+    part_area: np.ndarray
+    part_velocity: np.ndarray
+    energy_residual: np.ndarray
+    specific_force: np.ndarray
+
+
+def _section_props(tables, wse):
+    """Properties of each section at its WSE, stacked into arrays (N,) / (N, 3)."""
+    ps = [properties(t, w) for t, w in zip(tables, wse)]
+    names = ("area", "top_width", "wetted_perimeter", "conveyance", "alpha", "beta",
+             "first_moment", "not_contained")
+    out = {k: np.concatenate([getattr(p, k) for p in ps]) for k in names}
+    out["part_area"] = np.vstack([p.part_area for p in ps])
+    out["part_conveyance"] = np.vstack([p.part_conveyance for p in ps])
+    return out
+
+
+def _flags(status, boundary, jump, several, not_contained):
+    words = []
+    for i in range(status.size):
+        f = []
+        if boundary[i]:
+            f.append("boundary")
+        if status[i] == NO_CONVERGENCE:
+            f += ["no_convergence", "critical_assumed"]
+        elif status[i] == CRITICAL:
+            f.append("critical_assumed")
+        if not_contained[i]:
+            f.append("not_contained")
+        if jump[i]:
+            f.append("jump_upstream")
+        if several[i]:
+            f.append("several_critical_depths")
+        words.append(tuple(f))
+    return tuple(words)
+
+
+def assemble(tables, q, wc, wse, residual, status, boundary, jump, several, g) -> Profile:
+    """Build a Profile from per-section WSE (N,), discharge, critical WSE and solver status."""
+    p = _section_props(tables, wse)
+    a, k = p["area"], p["conveyance"]
+    share = p["part_conveyance"] / k[:, None]
+    part_q = share * q[:, None]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        part_v = np.where(p["part_area"] > 0, part_q / p["part_area"], 0.0)
+    velocity = q / a
+    regime = np.where(status != 0, "critical",
+                      np.where(np.abs(wse - wc) <= 1e-6, "critical",
+                               np.where(wse > wc, "subcritical", "supercritical")))
+    return Profile(
+        wse=wse.copy(), energy=wse + p["alpha"] * velocity ** 2 / (2.0 * g),
+        critical_wse=wc.copy(), velocity=velocity,
+        froude=velocity / np.sqrt(g * a / p["top_width"]), alpha=p["alpha"], area=a,
+        top_width=p["top_width"], wetted_perimeter=p["wetted_perimeter"], conveyance=k,
+        friction_slope=(q / k) ** 2, discharge=q.copy(), regime=regime.astype(str),
+        flags=_flags(status, boundary, jump, several, p["not_contained"]),
+        part_discharge=part_q, part_area=p["part_area"], part_velocity=part_v,
+        energy_residual=residual.copy(),
+        specific_force=specific_force(_PropsView(p), q, g))
+
+
+class _PropsView:
+    """Minimal attribute view of stacked properties for ``specific_force``."""
+
+    def __init__(self, p):
+        self.beta, self.area, self.first_moment = p["beta"], p["area"], p["first_moment"]
