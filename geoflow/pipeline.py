@@ -16,13 +16,18 @@ from . import layers, mapping, roughness, sections, terrain
 from .config import BoundarySpec, Config, Event
 from .errors import ConfigError, GeoflowError, HydraulicsError
 from .hydraulics.geometry import build_table
-from .hydraulics.solver import Boundary, SolverOptions, solve_profile
+from .hydraulics.solver import Boundary, SolverOptions
+from .hydraulics.solver import solve_events as hydraulics_solve_events
 from .records import ReachGeometry
 
 PROFILE_COLUMNS = (
     "reach_id", "event", "section_id", "chainage_m", "discharge_m3s", "bed_m", "wse_m", "energy_m",
     "critical_wse_m", "velocity_ms", "froude", "alpha", "area_m2", "top_width_m", "friction_slope", "flags",
 )
+
+
+# Solver flags that describe the section rather than call for review; kept out of profile.csv.
+INFO_ONLY_FLAGS = frozenset({"several_critical_depths"})
 
 
 @dataclass(frozen=True)
@@ -129,31 +134,47 @@ def solver_options(cfg: Config) -> SolverOptions:
 
 def build_tables(geom: ReachGeometry) -> list:
     """Hydraulic property tables of every section (shared by all events of the reach)."""
-    return [build_table(s.station, s.elevation, s.n, s.part) for s in geom.sections]
+    return [build_table(s.station, s.elevation, s.n, s.part, name=f"reach {geom.reach_id!r} section {s.section_id}")
+            for s in geom.sections]
 
 
-def solve_event(cfg: Config, geom: ReachGeometry, tables: list, event: Event):
-    """Steady profile of one event on one reach (hydraulics Profile)."""
+def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Event]) -> dict:
+    """Steady profiles of several events on one reach, solved together (vectorised across events).
+
+    Returns {event name: Profile or HydraulicsError}: if the joint solve fails, each event is
+    solved alone so one bad event (e.g. a discharge outside a rating table) spares the others.
+    """
     chainage = np.array([s.chainage for s in geom.sections])
     down, up = cfg.boundary.for_reach(geom.reach_id)
-    q = discharge_along(event, geom.reach_id, chainage)
+    q = np.stack([discharge_along(ev, geom.reach_id, chainage) for ev in events])
+    kw = dict(downstream=to_boundary(down), upstream=to_boundary(up), options=solver_options(cfg))
     try:
-        return solve_profile(tables, geom.lengths, q, downstream=to_boundary(down), upstream=to_boundary(up),
-                             options=solver_options(cfg))
-    except GeoflowError as exc:
-        raise HydraulicsError(f"reach {geom.reach_id!r}, event {event.name!r}: {exc}") from None
+        return dict(zip((ev.name for ev in events), hydraulics_solve_events(tables, geom.lengths, q, **kw)))
+    except GeoflowError:
+        pass
+    out = {}
+    for ev, qe in zip(events, q):
+        try:
+            out[ev.name] = hydraulics_solve_events(tables, geom.lengths, qe[None, :], **kw)[0]
+        except GeoflowError as exc:
+            out[ev.name] = HydraulicsError(f"reach {geom.reach_id!r}, event {ev.name!r}: {exc}")
+    return out
 
 
 def solve_reach(cfg: Config, geom: ReachGeometry) -> dict:
     """Steady profile of every event on one reach -> {event name: hydraulics Profile}."""
-    tables = build_tables(geom)
-    return {ev.name: solve_event(cfg, geom, tables, ev) for ev in cfg.events}
+    out = solve_events(cfg, geom, build_tables(geom), list(cfg.events))
+    for res in out.values():
+        if isinstance(res, Exception):
+            raise res
+    return out
 
 
 def profile_rows(geom: ReachGeometry, event: str, prof) -> pd.DataFrame:
     """profile.csv rows (contract columns first) for one reach and event."""
     n = len(geom.sections)
-    flags = [";".join(dict.fromkeys(tuple(s.flags) + tuple(f))) for s, f in zip(geom.sections, prof.flags)]
+    flags = [";".join(k for k in dict.fromkeys(tuple(s.flags) + tuple(f)) if k not in INFO_ONLY_FLAGS)
+             for s, f in zip(geom.sections, prof.flags)]
     df = pd.DataFrame({
         "reach_id": [geom.reach_id] * n,
         "event": [event] * n,

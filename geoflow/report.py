@@ -80,7 +80,8 @@ def figure_png(fig: Figure, dpi: int = 100) -> bytes:
 
 def long_profile_figure(profile_df: pd.DataFrame, events, reach_id: str) -> Figure:
     """Bed, and per event: water surface, energy grade line and critical level vs chainage."""
-    fig = Figure(figsize=(10, 4.6), layout="constrained")
+    fig = Figure(figsize=(10, 4.6))
+    fig.subplots_adjust(left=0.07, right=0.98, bottom=0.11, top=0.93)   # fixed margins: fast to render
     ax = fig.add_subplot()
     colours = [f"C{i % 10}" for i in range(len(events))]
     first = profile_df[profile_df["event"] == events[0]] if len(events) else profile_df
@@ -99,7 +100,7 @@ def long_profile_figure(profile_df: pd.DataFrame, events, reach_id: str) -> Figu
     ax.set_ylabel("elevation (m)")
     ax.set_title(f"Reach {reach_id}: long profile (flow left to right)")
     ax.grid(alpha=0.3)
-    ax.legend(fontsize=7, ncol=max(1, len(events)), loc="best")
+    ax.legend(fontsize=7, ncol=max(1, len(events)), loc="upper right")
     return fig
 
 
@@ -117,7 +118,8 @@ def _n_runs(section):
 
 def section_figure(section, rows: pd.DataFrame, events, label: str) -> Figure:
     """Ground, water surface per event, bank stations and Manning's n runs of one section."""
-    fig = Figure(figsize=(11, 3.8), layout="constrained")
+    fig = Figure(figsize=(11, 3.8))
+    fig.subplots_adjust(left=0.07, right=0.80, bottom=0.13, top=0.91)   # room for the legend at the right
     ax = fig.add_subplot()
     st = np.asarray(section.station, dtype=float)
     z = np.asarray(section.elevation, dtype=float)
@@ -138,9 +140,10 @@ def section_figure(section, rows: pd.DataFrame, events, label: str) -> Figure:
                 label=f"{event}: water surface {level[0]:.2f} m")
     ax.fill_between(st, z, base, color=_GROUND, alpha=0.35, lw=0)
     ax.plot(st, z, color=_GROUND, lw=1.8, label="ground")
-    for s, name in zip(section.bank_stations, ("left bank", "right bank")):
-        ax.axvline(s, color="k", ls="--", lw=1)
-        ax.text(s, top + 0.05 * span, name, ha="center", va="bottom", fontsize=8)
+    for s, name, side in zip(section.bank_stations, ("left bank", "right bank"), ("right", "left")):
+        ax.axvline(s, color="k", ls="--", lw=1)          # labels lean away from each other: never overlap
+        ax.text(s, top + 0.05 * span, f" {name} " if side == "left" else f"{name} ", ha=side, va="bottom",
+                fontsize=8)
     runs = _n_runs(section)
     shades = ["#e8e8e8", "#d0d0d0"]
     for k, (a, b, n) in enumerate(runs):           # n strip along the bottom of the plot
@@ -154,7 +157,7 @@ def section_figure(section, rows: pd.DataFrame, events, label: str) -> Figure:
     ax.set_title(f"{label}: section {section.section_id}, chainage {section.chainage:.1f} m "
                  "(grey strip: Manning's n)")
     ax.grid(alpha=0.3)
-    fig.legend(fontsize=7, loc="outside right upper")
+    fig.legend(fontsize=7, loc="upper right")
     return fig
 
 
