@@ -62,6 +62,8 @@ class RoughnessClass:
     n: float
     n_low: float | None = None
     n_high: float | None = None
+    n_by_depth: tuple[tuple[float, float], ...] = ()       # ((local flow depth m, n), ...) increasing depth
+    n_by_discharge: tuple[tuple[float, float], ...] = ()   # ((reach discharge m3/s, n), ...) increasing Q
 
 
 @dataclass(frozen=True)
@@ -304,7 +306,7 @@ def _read_class(r: _Reader, name: str, t: Any) -> RoughnessClass | None:
     if not isinstance(t, dict):
         r.problem(where, f"must be a table with n = ..., got {t!r}")
         return None
-    r.known(t, ("n", "n_low", "n_high"), where)
+    r.known(t, ("n", "n_low", "n_high", "n_by_depth", "n_by_discharge"), where)
     vals = {k: r.value(t, k, where, "number positive", required=(k == "n")) for k in ("n", "n_low", "n_high")}
     for k, v in vals.items():
         if v is not None and not 0.005 <= v <= 1.0:
@@ -315,7 +317,28 @@ def _read_class(r: _Reader, name: str, t: Any) -> RoughnessClass | None:
         return None
     if (lo is not None and lo > n) or (hi is not None and hi < n):
         r.problem(where, f"need n_low <= n <= n_high, got {lo}, {n}, {hi}")
-    return RoughnessClass(n=n, n_low=lo, n_high=hi)
+    laws = {k: _read_n_law(r, t[k], f"{where} {k}") for k in ("n_by_depth", "n_by_discharge") if k in t}
+    if len(laws) == 2:
+        r.problem(where, "give n_by_depth or n_by_discharge, not both")
+    return RoughnessClass(n=n, n_low=lo, n_high=hi, **{k: v for k, v in laws.items() if v})
+
+
+def _read_n_law(r: _Reader, v: Any, where: str) -> tuple[tuple[float, float], ...]:
+    """[[x, n], ...] with x >= 0 strictly increasing and n in 0.005-1.0."""
+    ok = isinstance(v, list) and len(v) >= 1 and all(
+        isinstance(p, list) and len(p) == 2 and all(isinstance(x, (int, float)) and not isinstance(x, bool)
+                                                     for x in p) for p in v)
+    if not ok:
+        r.problem(where, "must be a list of [value, n] pairs, e.g. [[0.5, 0.06], [2.0, 0.035]]")
+        return ()
+    xs, ns = [float(p[0]) for p in v], [float(p[1]) for p in v]
+    if xs[0] < 0 or any(b <= a for a, b in zip(xs, xs[1:])):
+        r.problem(where, "the first values (depth in m or discharge in m3/s) must be >= 0 and strictly increasing")
+        return ()
+    if any(not 0.005 <= x <= 1.0 for x in ns):
+        r.problem(where, "Manning's n values must lie in 0.005-1.0")
+        return ()
+    return tuple(zip(xs, ns))
 
 
 def _read_roughness(r: _Reader, doc: dict) -> RoughnessConfig | None:

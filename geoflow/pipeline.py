@@ -132,10 +132,49 @@ def solver_options(cfg: Config) -> SolverOptions:
                          contraction=h.contraction, expansion=h.expansion)
 
 
-def build_tables(geom: ReachGeometry) -> list:
-    """Hydraulic property tables of every section (shared by all events of the reach)."""
-    return [build_table(s.station, s.elevation, s.n, s.part, name=f"reach {geom.reach_id!r} section {s.section_id}")
+def build_tables(geom: ReachGeometry, cfg: Config | None = None, discharge: float | None = None) -> list:
+    """Hydraulic property tables of every section.
+
+    With ``cfg``, classes that give ``n_by_depth`` make n vary with the local flow depth over each
+    segment, and classes that give ``n_by_discharge`` take n at ``discharge`` (the event's
+    upstream discharge of the reach; tables are then built per event).
+    """
+    return [build_table(s.station, s.elevation, _n_at(s, cfg, discharge), s.part, n_depth=_n_depth(s, cfg),
+                        name=f"reach {geom.reach_id!r} section {s.section_id}")
             for s in geom.sections]
+
+
+def _laws(cfg: Config | None, kind: str) -> dict:
+    if cfg is None:
+        return {}
+    return {name: np.array(getattr(c, kind)) for name, c in cfg.roughness.classes.items() if getattr(c, kind)}
+
+
+def _n_at(section, cfg: Config | None, discharge: float | None) -> np.ndarray:
+    laws = _laws(cfg, "n_by_discharge")
+    n = np.asarray(section.n, dtype=float)
+    if not laws or discharge is None:
+        return n
+    n = n.copy()
+    for name, law in laws.items():
+        n[section.landcover == name] = np.interp(discharge, law[:, 0], law[:, 1])
+    return n
+
+
+def _n_depth(section, cfg: Config | None):
+    """(depths (k,), n (k, m-1)) for build_table, or None when no class varies with depth."""
+    laws = {k: v for k, v in _laws(cfg, "n_by_depth").items() if np.any(section.landcover == k)}
+    if not laws:
+        return None
+    depths = np.unique(np.concatenate([law[:, 0] for law in laws.values()]))
+    values = np.repeat(np.asarray(section.n, dtype=float)[None, :], depths.size, axis=0)
+    for name, law in laws.items():
+        values[:, section.landcover == name] = np.interp(depths, law[:, 0], law[:, 1])[:, None]
+    return depths, values
+
+
+def varies_with_discharge(cfg: Config) -> bool:
+    return bool(_laws(cfg, "n_by_discharge"))
 
 
 def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Event]) -> dict:
@@ -161,12 +200,19 @@ def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Ev
     return out
 
 
-def solve_reach(cfg: Config, geom: ReachGeometry) -> dict:
-    """Steady profile of every event on one reach -> {event name: hydraulics Profile}."""
-    out = solve_events(cfg, geom, build_tables(geom), list(cfg.events))
-    for res in out.values():
-        if isinstance(res, Exception):
-            raise res
+def solve_reach(cfg: Config, geom: ReachGeometry, events: list[Event] | None = None) -> dict:
+    """Steady profiles of the events (default: all) on one reach -> {event: Profile or HydraulicsError}.
+
+    Events are solved together on shared tables, unless some class's n depends on discharge:
+    then each event gets tables built with n at its own upstream discharge.
+    """
+    events = list(cfg.events) if events is None else events
+    if not varies_with_discharge(cfg):
+        return solve_events(cfg, geom, build_tables(geom, cfg), events)
+    out = {}
+    for ev in events:
+        tables = build_tables(geom, cfg, discharge=ev.upstream_discharge(geom.reach_id))
+        out.update(solve_events(cfg, geom, tables, [ev]))
     return out
 
 
@@ -208,6 +254,9 @@ def run_reach(cfg: Config, inputs: Inputs, reach_id: str, line, geom: ReachGeome
         res.geometry = geom if geom is not None else build_geometry(cfg, inputs, reach_id, line)
         t1 = time.perf_counter()
         profiles = solve_reach(cfg, res.geometry)
+        for p in profiles.values():
+            if isinstance(p, Exception):
+                raise p
         t2 = time.perf_counter()
         res.profile = pd.concat([profile_rows(res.geometry, ev, p) for ev, p in profiles.items()],
                                 ignore_index=True)

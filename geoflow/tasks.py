@@ -50,7 +50,7 @@ def compute_reach(config_path: str, config_sha256: str, reach_id: str, events: l
         _write_sections_part(cfg, geom)
         t1 = time.perf_counter()
         todo = [e for e in cfg.events if e.name in events]
-        profiles = pipeline.solve_events(cfg, geom, pipeline.build_tables(geom), todo)
+        profiles = pipeline.solve_reach(cfg, geom, todo)
         info["timings_s"]["hydraulics"] = time.perf_counter() - t1
         for ev in todo:
             info["events"][ev.name] = _compute_event(cfg, inputs, geom, profiles[ev.name], ev)
