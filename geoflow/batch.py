@@ -227,11 +227,12 @@ def run(config, workers: int = 1, scheduler: str | None = None, resume: bool = F
 
 
 def _compute(plans: list[_Plan], workers: int, scheduler: str | None, progress: bool) -> None:
+    """Run every planned reach; a reach with a junction boundary starts once the reach it joins is done."""
     total = sum(len(ev) for p in plans for ev in p.todo.values())
     bar = Progress(total, progress)
     submit, as_completed, close = _engine(workers, scheduler)
     try:
-        futures = {}
+        waiting = []
         for p in plans:
             p.manifest.save()
             log.info("run %s: %d reach(es) to compute, %d unit(s) reused (config %s, caution: %s)",
@@ -239,17 +240,29 @@ def _compute(plans: list[_Plan], workers: int, scheduler: str | None, progress: 
             for rid, entry in p.manifest.data["reaches"].items():
                 if entry.get("status") == "failed":
                     log.error("reach %s: failed the pre-check - %s", rid, entry.get("error"))
-            for rid, events in p.todo.items():
-                futures[submit(str(p.cfg.path), p.cfg.sha256, rid, events)] = (p, rid)
-        for fut in as_completed(list(futures)):
-            p, rid = futures[fut]
-            info = fut.result()
-            p.manifest.record_reach(rid, info)
-            p.manifest.save()
-            level = logging.INFO if info["status"] == "complete" else logging.ERROR
-            log.log(level, "reach %s: %s%s", rid, info["status"], f" - {info['error']}" if info["error"] else "")
-            if "traceback" in info:
-                log.error("%s", info["traceback"])
-            bar.step(f"{p.cfg.run.name}/{rid}: {info['status']}", len(p.todo[rid]))
+            deps = pipeline.junction_order(p.cfg, list(p.todo))
+            waiting.extend((p, rid, deps.get(rid) if deps.get(rid) in p.todo else None) for rid in p.todo)
+        futures, finished = {}, set()
+        while waiting or futures:
+            ready = [w for w in waiting if w[2] is None or (id(w[0]), w[2]) in finished]
+            waiting = [w for w in waiting if w not in ready]
+            for p, rid, _ in ready:
+                futures[submit(str(p.cfg.path), p.cfg.sha256, rid, p.todo[rid])] = (p, rid)
+            if not futures:
+                break
+            fut = next(iter(as_completed(list(futures))))
+            p, rid = futures.pop(fut)
+            _record(p, rid, fut.result())
+            finished.add((id(p), rid))
+            bar.step(f"{p.cfg.run.name}/{rid}: {p.manifest.data['reaches'][rid]['status']}", len(p.todo[rid]))
     finally:
         close()
+
+
+def _record(p: _Plan, rid: str, info: dict) -> None:
+    p.manifest.record_reach(rid, info)
+    p.manifest.save()
+    level = logging.INFO if info["status"] == "complete" else logging.ERROR
+    log.log(level, "reach %s: %s%s", rid, info["status"], f" - {info['error']}" if info["error"] else "")
+    if "traceback" in info:
+        log.error("%s", info["traceback"])

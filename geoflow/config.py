@@ -19,7 +19,7 @@ from typing import Any, Mapping
 from .errors import ConfigError
 
 REGIMES = ("subcritical", "supercritical", "mixed")
-BOUNDARY_TYPES = ("normal_depth", "stage", "critical", "rating")
+BOUNDARY_TYPES = ("normal_depth", "stage", "critical", "rating", "junction")
 FRICTION_SLOPE_METHODS = ("average_conveyance", "arithmetic", "geometric", "harmonic")
 MAPPING_OUTPUTS = ("wse", "depth", "extent", "report")
 VERTICAL_UNITS = ("m", "ft", "us_ft")
@@ -109,6 +109,7 @@ class BoundarySpec:
     wse: float | None = None
     discharge: tuple[float, ...] = ()
     stage: tuple[float, ...] = ()
+    reach: str | None = None          # junction: the reach this one flows into
 
 
 @dataclass(frozen=True)
@@ -431,7 +432,8 @@ def _read_bspec(r: _Reader, v: Any, where: str) -> BoundarySpec | None:
     btype = r.choice(v, "type", where, BOUNDARY_TYPES, None)
     if btype is None:
         return None
-    needs = {"normal_depth": ("slope",), "stage": ("wse",), "critical": (), "rating": ("discharge", "stage")}[btype]
+    needs = {"normal_depth": ("slope",), "stage": ("wse",), "critical": (), "rating": ("discharge", "stage"),
+             "junction": ("reach",)}[btype]
     r.known(v, ("type",) + needs, where)
     if btype == "normal_depth":
         s = r.value(v, "slope", where, "number positive", required=True)
@@ -441,6 +443,12 @@ def _read_bspec(r: _Reader, v: Any, where: str) -> BoundarySpec | None:
         return BoundarySpec(type=btype, wse=w) if w is not None else None
     if btype == "critical":
         return BoundarySpec(type=btype)
+    if btype == "junction":
+        if where.endswith("upstream"):
+            r.problem(where, "a junction can only be a downstream boundary")
+            return None
+        reach = r.value(v, "reach", where, "string", required=True)
+        return BoundarySpec(type=btype, reach=str(reach)) if reach else None
     q, h = v.get("discharge"), v.get("stage")
     ok = all(isinstance(a, list) and len(a) >= 2 and all(isinstance(x, (int, float)) and not isinstance(x, bool)
                                                            for x in a) for a in (q, h))

@@ -5,14 +5,14 @@ terrain/layers read inputs, hydraulics/ computes, mapping/outputs/report write.
 """
 from __future__ import annotations
 
-import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from shapely.geometry import Point
 
-from . import layers, mapping, roughness, sections, terrain
+from . import layers, roughness, sections, terrain
 from .config import BoundarySpec, Config, Event
 from .errors import ConfigError, GeoflowError, HydraulicsError
 from .hydraulics.geometry import build_table
@@ -37,18 +37,6 @@ class Inputs:
     dem: terrain.Dem
     reaches: tuple[tuple[str, object], ...]     # (reach_id, LineString in DEM CRS)
     cover: object                               # layers.LandCover
-
-
-@dataclass
-class ReachResult:
-    reach_id: str
-    status: str = "pending"                     # "complete" | "failed"
-    error: str | None = None
-    geometry: ReachGeometry | None = None
-    profile: pd.DataFrame | None = None         # profile.csv rows of this reach, all events
-    maps: dict = field(default_factory=dict)    # event -> mapping.ReachMap
-    timings: dict = field(default_factory=dict)
-    warnings: list = field(default_factory=list)
 
 
 def open_inputs(cfg: Config) -> Inputs:
@@ -92,6 +80,14 @@ def _check_events(cfg: Config, reach_ids: list[str]) -> None:
         if rid not in known:
             raise ConfigError(f"{cfg.path}: [sections.reaches.{rid}] names a reach that is not in "
                               f"{cfg.reaches.centrelines.name} (reaches: {', '.join(sorted(known))})")
+    for rid in known:
+        down, _ = cfg.boundary.for_reach(rid)
+        if down.type == "junction":
+            where = f"[boundary.reaches.{rid}] downstream" if rid in cfg.boundary.reaches else "[boundary] downstream"
+            if down.reach not in known or down.reach == rid:
+                raise ConfigError(f"{cfg.path}: {where}: junction reach {down.reach!r} must be another reach of "
+                                  f"{cfg.reaches.centrelines.name} (reaches: {', '.join(sorted(known))})")
+    junction_order(cfg, sorted(known))
     for rid in cfg.boundary.reaches:
         if rid not in known:
             raise ConfigError(f"{cfg.path}: [boundary.reaches.{rid}] names a reach that is not in "
@@ -114,9 +110,14 @@ def discharge_along(event: Event, reach_id: str, chainage: np.ndarray) -> np.nda
     return q
 
 
-def to_boundary(spec: BoundarySpec | None) -> Boundary | None:
+def to_boundary(spec: BoundarySpec | None, junction_wse: np.ndarray | None = None) -> Boundary | None:
+    """Solver boundary for a config spec; a junction takes the given WSE per event."""
     if spec is None:
         return None
+    if spec.type == "junction":
+        if junction_wse is None:
+            raise HydraulicsError(f"junction boundary with reach {spec.reach!r} needs that reach's result first")
+        return Boundary.stage(wse=junction_wse)
     if spec.type == "normal_depth":
         return Boundary.normal_depth(slope=spec.slope)
     if spec.type == "stage":
@@ -177,7 +178,8 @@ def varies_with_discharge(cfg: Config) -> bool:
     return bool(_laws(cfg, "n_by_discharge"))
 
 
-def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Event]) -> dict:
+def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Event],
+                 junction_wse: dict | None = None) -> dict:
     """Steady profiles of several events on one reach, solved together (vectorised across events).
 
     Returns {event name: Profile or HydraulicsError}: if the joint solve fails, each event is
@@ -186,21 +188,25 @@ def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Ev
     chainage = np.array([s.chainage for s in geom.sections])
     down, up = cfg.boundary.for_reach(geom.reach_id)
     q = np.stack([discharge_along(ev, geom.reach_id, chainage) for ev in events])
-    kw = dict(downstream=to_boundary(down), upstream=to_boundary(up), options=solver_options(cfg))
+    jw = None if junction_wse is None else np.array([junction_wse[ev.name] for ev in events])
+    kw = dict(upstream=to_boundary(up), options=solver_options(cfg))
     try:
-        return dict(zip((ev.name for ev in events), hydraulics_solve_events(tables, geom.lengths, q, **kw)))
+        return dict(zip((ev.name for ev in events),
+                        hydraulics_solve_events(tables, geom.lengths, q, downstream=to_boundary(down, jw), **kw)))
     except GeoflowError:
         pass
     out = {}
-    for ev, qe in zip(events, q):
+    for k, (ev, qe) in enumerate(zip(events, q)):
         try:
-            out[ev.name] = hydraulics_solve_events(tables, geom.lengths, qe[None, :], **kw)[0]
+            bound = to_boundary(down, None if jw is None else jw[k:k + 1])
+            out[ev.name] = hydraulics_solve_events(tables, geom.lengths, qe[None, :], downstream=bound, **kw)[0]
         except GeoflowError as exc:
             out[ev.name] = HydraulicsError(f"reach {geom.reach_id!r}, event {ev.name!r}: {exc}")
     return out
 
 
-def solve_reach(cfg: Config, geom: ReachGeometry, events: list[Event] | None = None) -> dict:
+def solve_reach(cfg: Config, geom: ReachGeometry, events: list[Event] | None = None,
+                junction_wse: dict | None = None) -> dict:
     """Steady profiles of the events (default: all) on one reach -> {event: Profile or HydraulicsError}.
 
     Events are solved together on shared tables, unless some class's n depends on discharge:
@@ -208,11 +214,11 @@ def solve_reach(cfg: Config, geom: ReachGeometry, events: list[Event] | None = N
     """
     events = list(cfg.events) if events is None else events
     if not varies_with_discharge(cfg):
-        return solve_events(cfg, geom, build_tables(geom, cfg), events)
+        return solve_events(cfg, geom, build_tables(geom, cfg), events, junction_wse)
     out = {}
     for ev in events:
         tables = build_tables(geom, cfg, discharge=ev.upstream_discharge(geom.reach_id))
-        out.update(solve_events(cfg, geom, tables, [ev]))
+        out.update(solve_events(cfg, geom, tables, [ev], junction_wse))
     return out
 
 
@@ -246,29 +252,37 @@ def profile_rows(geom: ReachGeometry, event: str, prof) -> pd.DataFrame:
     return df
 
 
-def run_reach(cfg: Config, inputs: Inputs, reach_id: str, line, geom: ReachGeometry | None = None) -> ReachResult:
-    """Everything for one reach, in memory; GeoflowError becomes a failed result, not an exception."""
-    res = ReachResult(reach_id=reach_id)
-    try:
-        t0 = time.perf_counter()
-        res.geometry = geom if geom is not None else build_geometry(cfg, inputs, reach_id, line)
-        t1 = time.perf_counter()
-        profiles = solve_reach(cfg, res.geometry)
-        for p in profiles.values():
-            if isinstance(p, Exception):
-                raise p
-        t2 = time.perf_counter()
-        res.profile = pd.concat([profile_rows(res.geometry, ev, p) for ev, p in profiles.items()],
-                                ignore_index=True)
-        wants_maps = {"wse", "depth", "extent"} & set(cfg.mapping.outputs)
-        for ev, p in profiles.items():
-            if wants_maps:
-                res.maps[ev] = mapping.map_reach(inputs.dem, res.geometry, np.asarray(p.wse),
-                                                 cell_size=cfg.mapping.cell_size)
-        t3 = time.perf_counter()
-        res.timings = {"sections_s": t1 - t0, "hydraulics_s": t2 - t1, "mapping_s": t3 - t2}
-        res.warnings = list(res.geometry.warnings)
-        res.status = "complete"
-    except GeoflowError as exc:
-        res.status, res.error = "failed", str(exc)
-    return res
+def junction_order(cfg: Config, reach_ids: list[str]) -> dict[str, str]:
+    """{reach: the reach whose WSE is its downstream boundary}; raises on a cycle."""
+    deps = {}
+    for rid in reach_ids:
+        down, _ = cfg.boundary.for_reach(rid)
+        if down.type == "junction":
+            deps[rid] = down.reach
+    for start in deps:
+        seen, cur = {start}, start
+        while cur in deps:
+            cur = deps[cur]
+            if cur in seen:
+                raise ConfigError(f"{cfg.path}: junction boundaries form a loop through reach {start!r}; "
+                                  "each chain must end at a reach with its own downstream boundary")
+            seen.add(cur)
+    return deps
+
+
+def junction_wse_from(receiving_line, receiving_profile: pd.DataFrame, tributary_line, events: list[str],
+                      receiving_id: str) -> dict:
+    """WSE per event of the receiving reach where the tributary's downstream end meets it.
+
+    The tributary's last vertex is projected onto the receiving centreline; its chainage there
+    interpolates the receiving reach's WSE linearly between sections.
+    """
+    end = Point(tributary_line.coords[-1])
+    ch = receiving_line.project(end)
+    out = {}
+    for ev in events:
+        rows = receiving_profile[receiving_profile["event"] == ev].sort_values("chainage_m")
+        if rows.empty or rows["wse_m"].isna().all():
+            raise HydraulicsError(f"junction reach {receiving_id!r} has no result for event {ev!r}")
+        out[ev] = float(np.interp(ch, rows["chainage_m"], rows["wse_m"]))
+    return out

@@ -18,7 +18,7 @@ import pandas as pd
 
 from . import CAUTION, outputs, pipeline, report
 from .config import Config, load_config
-from .errors import ConfigError, GeoflowError
+from .errors import ConfigError, GeoflowError, HydraulicsError
 from .manifest import part_paths
 from .mapping import map_reach
 from .naming import safe_name
@@ -50,7 +50,7 @@ def compute_reach(config_path: str, config_sha256: str, reach_id: str, events: l
         _write_sections_part(cfg, geom)
         t1 = time.perf_counter()
         todo = [e for e in cfg.events if e.name in events]
-        profiles = pipeline.solve_reach(cfg, geom, todo)
+        profiles = pipeline.solve_reach(cfg, geom, todo, _junction_wse(cfg, inputs, geom, todo))
         info["timings_s"]["hydraulics"] = time.perf_counter() - t1
         for ev in todo:
             info["events"][ev.name] = _compute_event(cfg, inputs, geom, profiles[ev.name], ev)
@@ -67,6 +67,23 @@ def compute_reach(config_path: str, config_sha256: str, reach_id: str, events: l
     for ev in events:
         info["events"].setdefault(ev, {"status": "failed", "error": info["error"]})
     return info
+
+
+def _junction_wse(cfg: Config, inputs, geom, events) -> dict | None:
+    """WSE per event where this reach joins the reach named by its junction boundary (or None)."""
+    down, _ = cfg.boundary.for_reach(geom.reach_id)
+    if down.type != "junction":
+        return None
+    prof = read_profile_parts(cfg, down.reach)
+    if prof is None:
+        raise HydraulicsError(f"reach {geom.reach_id!r}: junction reach {down.reach!r} has no results; it failed "
+                              "or was not computed, so this reach cannot be either")
+    lines = dict(inputs.reaches)
+    try:
+        return pipeline.junction_wse_from(lines[down.reach], prof, geom.centreline, [e.name for e in events],
+                                          down.reach)
+    except HydraulicsError as exc:
+        raise HydraulicsError(f"reach {geom.reach_id!r}: {exc}") from None
 
 
 def _compute_event(cfg: Config, inputs, geom, prof, ev) -> dict:
