@@ -79,6 +79,37 @@ def read_centrelines(path, crs, layer: str | None = None, id_field: str = "reach
     return [(str(i), g) for i, g in zip(ids, geoms)]
 
 
+def read_section_lines(path, crs, layer: str | None = None, id_field: str = "reach_id") -> dict[str, list[LineString]]:
+    """Read user-drawn cross-section lines as ``{reach_id: [LineString, ...]}`` (file order kept).
+
+    Lines are reprojected to ``crs`` (the DEM CRS) and Z is dropped; a MultiLineString whose
+    parts join end to end becomes one line (``shapely.line_merge(directed=True)``), otherwise
+    it is an error naming the feature. Many lines may share a reach id; null or empty ids are
+    errors. Direction and order do not matter (see :func:`geoflow.sections.sections_from_lines`).
+    """
+    path = Path(path)
+    gdf, where = _read_layer(path, crs, layer, [id_field], _LINE_TYPES, "line")
+    ids = gdf[id_field].to_numpy()
+    geoms = shapely.force_2d(np.asarray(gdf.geometry.values, dtype=object))
+    multi = shapely.get_type_id(geoms) == shapely.GeometryType.MULTILINESTRING
+    if np.any(multi):
+        geoms[multi] = shapely.line_merge(geoms[multi], directed=True)
+        still = np.flatnonzero(shapely.get_type_id(geoms) != shapely.GeometryType.LINESTRING)
+        if still.size:
+            raise InputDataError(f"{where}: section line feature {int(still[0])} has parts that do not join end to end; "
+                                 "draw each section as one continuous line")
+    out: dict[str, list[LineString]] = {}
+    for i, (v, g) in enumerate(zip(ids, geoms)):
+        text = "" if v is None or (isinstance(v, float) and not np.isfinite(v)) else _as_text(v)
+        if not text:
+            raise InputDataError(f"{where}: field {id_field!r} is empty for feature {i}; give every section line the "
+                                 "id of the reach it crosses")
+        if g.length <= 0.0:
+            raise InputDataError(f"{where}: section line feature {i} (reach {text}) has zero length; redraw or delete it")
+        out.setdefault(text, []).append(g)
+    return out
+
+
 def read_landcover(path, crs, class_field: str, layer: str | None = None, bbox=None) -> LandCover:
     """Read land-cover polygons and their class names, reprojected to ``crs`` (the DEM CRS).
 

@@ -6,6 +6,7 @@ sensitivity run). Values are s/m^(1/3) (the same number in SI and US customary u
 """
 from __future__ import annotations
 
+import difflib
 from dataclasses import dataclass
 
 import numpy as np
@@ -66,13 +67,24 @@ CHOW_1959 = (
 )
 
 
-def reference_n(key: str) -> ReferenceN:
-    """Row of :data:`CHOW_1959` by key (case-insensitive); error lists the keys."""
+def reference_entry(key: str) -> ReferenceN:
+    """Row of :data:`CHOW_1959` by key (case-insensitive, surrounding spaces ignored).
+
+    For a config line ``reference = "<key>"`` in ``[roughness.classes.<name>]``. An unknown key
+    raises :class:`RoughnessError` with the closest key (difflib) and the list of valid keys.
+    """
     rows = {r.key: r for r in CHOW_1959}
     k = str(key).strip().lower()
     if k not in rows:
-        raise RoughnessError(f"no reference n for {key!r}; known cover types: {', '.join(rows)}")
+        hint = difflib.get_close_matches(k, list(rows), n=1, cutoff=0.6)
+        extra = f" (did you mean {hint[0]!r}?)" if hint else ""
+        raise RoughnessError(f"no reference n for {key!r}{extra}; known cover types: {', '.join(rows)}")
     return rows[k]
+
+
+def reference_n(key: str) -> ReferenceN:
+    """Row of :data:`CHOW_1959` by key (case-insensitive); error lists the keys (= :func:`reference_entry`)."""
+    return reference_entry(key)
 
 
 def cowan_n(n_b, n1=0.0, n2=0.0, n3=0.0, n4=0.0, m=1.0):

@@ -10,19 +10,25 @@ Table 5-6 (see :mod:`geoflow.ntables`).
 Parts: the channel is the contiguous run of ``channel_class`` segments nearest to the
 centre of the section (where the centreline crosses it); segments left of it are left
 overbank, right of it right overbank; channel-class segments away from that run (ponds,
-side arms) count as overbank. Without any channel cover the lowest ground point ± one
-sample step is taken as the channel and the section is flagged ``no_channel_cover``.
+side arms) count as overbank. Without any channel cover the banks are found from the ground
+by break in slope (:func:`geoflow.banks.detect_banks`) and the section is flagged
+``no_channel_cover``. The centre of a section is where the centreline crosses it (so
+sections of uneven sides, adaptive width or drawn by the user, are handled).
 """
 from __future__ import annotations
 
+import csv
 import dataclasses
+import difflib
 from collections.abc import Mapping
+from pathlib import Path
 
 import numpy as np
 import shapely
 
-from .errors import RoughnessError
-from .records import CHANNEL, LEFT_OVERBANK, RIGHT_OVERBANK, ReachGeometry
+from .banks import detect_banks
+from .errors import InputDataError, RoughnessError
+from .records import CHANNEL, LEFT_OVERBANK, RIGHT_OVERBANK, ReachGeometry, Section
 from .sections import overbank_lengths
 
 GAP_CLASS = ""   # land-cover name given to segments in a gap filled with default_n
@@ -56,15 +62,16 @@ def assign_roughness(geom: ReachGeometry, cover, channel_class: str, n_table: Ma
         warnings.append(f"reach {rid}: land-cover class(es) {', '.join(unknown)} have no Manning's n; "
                         f"default_n = {default_n} used")
     bounds = np.cumsum([0] + [s.station.size - 1 for s in geom.sections])
+    centres = centre_stations(geom)
     new_sections = []
     for k, sec in enumerate(geom.sections):
         sl = slice(bounds[k], bounds[k + 1])
-        part, found = _parts(cls[sl] == str(channel_class), sec.station, sec.elevation)
+        part, found = _parts(cls[sl] == str(channel_class), sec.station, sec.elevation, centres[k])
         flags = list(sec.flags)
         if not found:
             flags.append("no_channel_cover")
             warnings.append(f"reach {rid}: section {k} (chainage {sec.chainage:.1f} m) has no {channel_class!r} "
-                            "cover; the lowest ground point was taken as the channel")
+                            "cover; banks were taken from breaks in the ground slope")
         if not has_cover[sl].all():
             flags.append("landcover_gap")
         new_sections.append(dataclasses.replace(sec, n=n[sl].copy(), landcover=cls[sl].copy(), part=part,
@@ -91,14 +98,21 @@ def _n_value(name, value) -> float:
 
 
 def _segment_midpoints(sections) -> tuple[np.ndarray, np.ndarray]:
-    """(M, 2) mid-points of all station segments of all sections, and the section index of each."""
-    xy, owner = [], []
-    for k, sec in enumerate(sections):
-        start, end = np.asarray(sec.line.coords)[[0, -1]]
-        frac = 0.5 * (sec.station[:-1] + sec.station[1:]) / sec.station[-1]
-        xy.append(start + frac[:, None] * (end - start))
-        owner.append(np.full(frac.size, k))
-    return np.concatenate(xy), np.concatenate(owner)
+    """(M, 2) mid-points of all station segments of all sections (along polylines too), and the owner section."""
+    counts = [sec.station.size - 1 for sec in sections]
+    lines = np.repeat(np.asarray([sec.line for sec in sections], dtype=object), counts)
+    scale = np.concatenate([np.full(c, sec.line.length / sec.station[-1]) for c, sec in zip(counts, sections)])
+    mid = np.concatenate([0.5 * (sec.station[:-1] + sec.station[1:]) for sec in sections])
+    xy = shapely.get_coordinates(shapely.line_interpolate_point(lines, mid * scale))
+    return xy, np.repeat(np.arange(len(sections)), counts)
+
+
+def centre_stations(geom: ReachGeometry) -> np.ndarray:
+    """Station (m from the left end) where each section meets the centreline: its chainage point."""
+    pts = shapely.line_interpolate_point(geom.centreline, [s.chainage for s in geom.sections])
+    lines = np.asarray([s.line for s in geom.sections], dtype=object)
+    frac = shapely.line_locate_point(lines, pts) / shapely.length(lines)
+    return frac * np.array([s.station[-1] for s in geom.sections])
 
 
 def _classes_at(cover, xy: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
@@ -136,20 +150,116 @@ def _n_for(rid, cls, has_cover, owner, xy, sections, cover, table, default_n) ->
     return lookup[np.unique(cls, return_inverse=True)[1]], unknown
 
 
-def _parts(is_channel: np.ndarray, station: np.ndarray, elevation: np.ndarray) -> tuple[np.ndarray, bool]:
+def _parts(is_channel: np.ndarray, station: np.ndarray, elevation: np.ndarray,
+           centre: float | None = None) -> tuple[np.ndarray, bool]:
     """Part code per segment (int8) and whether channel cover was found."""
     m = is_channel.size
+    centre = 0.5 * station[-1] if centre is None else float(centre)
     found = bool(is_channel.any())
     if found:
         edges = np.diff(np.concatenate(([0], is_channel.astype(np.int8), [0])))
         starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)  # segment index ranges
-        centre = 0.5 * station[-1]
         gap = np.maximum(station[starts] - centre, 0.0) + np.maximum(centre - station[stops], 0.0)
         r = int(np.argmin(gap))
         lo, hi = int(starts[r]), int(stops[r])
     else:
-        low = int(np.argmin(elevation))
-        lo, hi = max(low - 1, 0), min(low + 1, m)
+        left, right = detect_banks(station, elevation, centre)
+        lo, hi = int(np.searchsorted(station, left)), int(np.searchsorted(station, right))
+        lo, hi = min(lo, m - 1), max(hi, min(lo, m - 1) + 1)
     idx = np.arange(m)
     part = np.where(idx < lo, LEFT_OVERBANK, np.where(idx >= hi, RIGHT_OVERBANK, CHANNEL)).astype(np.int8)
     return part, found
+
+
+def composite_n_by_part(section: Section) -> tuple[float, float, float]:
+    """(n_left_overbank, n_channel, n_right_overbank): one composite Manning's n per part.
+
+    Horton/Einstein (equal mean velocity in every sub-area): n_c = [sum(P_i n_i^1.5) / P]^(2/3),
+    Chow (1959) *Open-Channel Hydraulics*, ch. 6, with P_i the ground length of segment i
+    (sqrt(dstation^2 + dz^2)) and P their sum over the part. NaN for a part with no segment.
+    ``n`` and ``part`` must be set (see :func:`assign_roughness`).
+    """
+    if section.n is None or section.part is None:
+        raise RoughnessError(f"reach {section.reach_id}: section {section.section_id} has no Manning's n yet; "
+                             "call assign_roughness first")
+    p = np.hypot(np.diff(section.station), np.diff(section.elevation))
+    n = np.asarray(section.n, dtype=np.float64)
+    out = []
+    for code in (LEFT_OVERBANK, CHANNEL, RIGHT_OVERBANK):
+        sel = np.asarray(section.part) == code
+        total = p[sel].sum()
+        out.append(float((np.sum(p[sel] * n[sel] ** 1.5) / total) ** (2.0 / 3.0)) if total > 0 else float("nan"))
+    return out[0], out[1], out[2]
+
+
+N_RANGE = (0.005, 1.0)   # accepted Manning's n in a class table, s/m^(1/3)
+
+
+def read_class_table(path) -> dict[str, dict]:
+    """Read a roughness class table (CSV) -> ``{class: {"n": .., "n_low": .., "n_high": ..}}``.
+
+    Columns: ``class``, ``n`` and optionally ``n_low``, ``n_high`` (header names are
+    case-insensitive; empty optional cells are left out). Every n must lie in 0.005-1 and
+    n_low <= n <= n_high. Each bad row raises one :class:`InputDataError` naming file and row.
+    """
+    path = Path(path)
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as fh:
+            rows = list(csv.reader(fh))
+    except OSError as exc:
+        raise InputDataError(f"{path}: cannot read the roughness table ({exc.strerror or exc}); check the path") from None
+    except UnicodeDecodeError:
+        raise InputDataError(f"{path}: roughness table is not UTF-8 text; save it as CSV (UTF-8)") from None
+    if not rows:
+        raise InputDataError(f"{path}: roughness table is empty; give a header row class,n[,n_low,n_high]")
+    header = [h.strip().lower() for h in rows[0]]
+    _check_header(path, header)
+    out: dict[str, dict] = {}
+    for line_no, row in enumerate(rows[1:], start=2):
+        if not any(c.strip() for c in row):
+            continue
+        cells = dict(zip(header, (c.strip() for c in row)))
+        name = cells.get("class", "")
+        if not name:
+            raise InputDataError(f"{path}: row {line_no} has no class name; fill the 'class' column")
+        if name in out:
+            raise InputDataError(f"{path}: row {line_no}: class {name!r} is listed twice; keep one row per class")
+        out[name] = _class_row(path, line_no, name, cells)
+    if not out:
+        raise InputDataError(f"{path}: roughness table has a header but no rows; add one row per land-cover class")
+    return out
+
+
+def _check_header(path: Path, header: list[str]) -> None:
+    known = ("class", "n", "n_low", "n_high")
+    for col in ("class", "n"):
+        if col not in header:
+            raise InputDataError(f"{path}: column {col!r} not found in the header ({', '.join(header)}); "
+                                 "the header must be class,n[,n_low,n_high]")
+    for col in header:
+        if col not in known:
+            hint = difflib.get_close_matches(col, known, n=1)
+            extra = f" (did you mean {hint[0]!r}?)" if hint else ""
+            raise InputDataError(f"{path}: unknown column {col!r}{extra}; columns are class,n[,n_low,n_high]")
+
+
+def _class_row(path: Path, line_no: int, name: str, cells: dict) -> dict:
+    entry = {}
+    for col in ("n", "n_low", "n_high"):
+        text = cells.get(col, "")
+        if not text:
+            if col == "n":
+                raise InputDataError(f"{path}: row {line_no} (class {name!r}) has no n; give Manning's n")
+            continue
+        try:
+            v = float(text)
+        except ValueError:
+            raise InputDataError(f"{path}: row {line_no} (class {name!r}): {col} = {text!r} is not a number") from None
+        if not (N_RANGE[0] <= v <= N_RANGE[1]):
+            raise InputDataError(f"{path}: row {line_no} (class {name!r}): {col} = {v:g} is outside "
+                                 f"{N_RANGE[0]}-{N_RANGE[1]}; check the value (s/m^(1/3))")
+        entry[col] = v
+    if not entry.get("n_low", entry["n"]) <= entry["n"] <= entry.get("n_high", entry["n"]):
+        raise InputDataError(f"{path}: row {line_no} (class {name!r}): need n_low <= n <= n_high, got "
+                             f"{entry.get('n_low')} / {entry['n']} / {entry.get('n_high')}")
+    return entry

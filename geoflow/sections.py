@@ -13,6 +13,12 @@ while wiggles shorter than about 2h do not turn the sections. Remaining crossing
 meanders whose radius is below the half-width) are repaired by shortening, of each crossing
 pair, the section crossed farther from its centre, symmetrically about the centreline, to
 98 % of that distance.
+
+Sides. Each section has a left and a right length (equal unless adaptive width or a
+confluence made them differ, see :mod:`geoflow.sidelimits`); each side is sampled evenly
+from the centreline outwards, so the centreline point is always a ground sample.
+Also here: :func:`orient_centreline` (drawn direction checked against the DEM) and
+:func:`sections_from_lines` (user-drawn section lines, :mod:`geoflow.userlines`).
 """
 from __future__ import annotations
 
@@ -24,24 +30,34 @@ from shapely.geometry import LineString
 
 from .errors import GeometryError
 from .records import ReachGeometry, Section
+from .sidelimits import adaptive_halves, confluence_halves, end_bed_levels, sample_many
 
 MAX_GAP_SAMPLES = 3          # nodata runs up to this many samples are interpolated
 _SHORTEN_FACTOR = 0.98       # shortened half-width = this x distance from centre to crossing
 _MIN_WIDTH_FRACTION = 0.1    # refuse repairs that leave less than this fraction of the width
-_ONE_READ_CELLS = 4_000_000  # sample a whole reach in one DEM read when its box is this small
 
 
 def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, width: float,
                  sample_step: float | None = None, smoothing: float | None = None,
-                 repair: bool = True) -> ReachGeometry:
+                 repair: bool = True, others=None, rise: float | None = None,
+                 rise_margin: float | None = None) -> ReachGeometry:
     """Cut cross-sections every ``spacing`` m along ``centreline`` and sample the ground.
 
     Sections sit at chainage 0, spacing, 2·spacing, ... and at the downstream end L (if the
     last gap would be under spacing/10 the previous section is dropped instead). Each is a
     straight line ``width`` m long, centred on the centreline, perpendicular to the smoothed
     flow direction and drawn from its left end to its right end looking downstream. The
-    ground is sampled every ``sample_step`` m (default: DEM cell size). ``repair=False``
+    ground is sampled every ``sample_step`` m or a little less (default: DEM cell size), each
+    side divided evenly from the centreline outwards. ``repair=False``
     flags crossing sections ``crosses_section`` instead of shortening them.
+
+    ``rise`` (m): adaptive width; ``width`` becomes the largest total width and each side ends
+    where the ground first rises ``rise`` m above the section's channel bed (lowest ground
+    within spacing/4 of the centreline) plus ``rise_margin`` (default half a sample step);
+    sides may differ in length; flag ``width_capped`` where ``width``/2 bound a side.
+    ``others``: the other reaches' centrelines ({reach_id: LineString}, (id, line) pairs or
+    bare lines, DEM CRS); a side crossing one is shortened to just short of it (flag
+    ``shortened_at_confluence``), see :mod:`geoflow.sidelimits`.
 
     ``lengths`` (N-1, 3): channel = chainage difference; left/right overbank = distance
     between the mid-points of the left (right) halves of consecutive section lines.
@@ -49,29 +65,66 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
     rid = str(reach_id)
     step = float(sample_step) if sample_step is not None else float(dem.cell_size)
     _check_positive(rid, spacing=spacing, width=width, sample_step=step)
+    if rise is not None:
+        _check_positive(rid, rise=rise)
     line = shapely.force_2d(centreline)
     _check_inside(rid, line, dem.bounds)
     length = float(line.length)
     chain = _chainages(rid, length, float(spacing))
     h = float(smoothing) if smoothing is not None else 0.5 * float(spacing)
     centre, left_normal = _frame(rid, line, chain, h, min(max(step, 0.1 * float(spacing)), h))
-    half = np.full(chain.size, 0.5 * float(width))
     flags: list[list[str]] = [[] for _ in chain]
     warnings: list[str] = []
-    pairs, t_i, t_j = _crossings(centre, left_normal, half)
-    if pairs.size:
-        if repair:
-            half = _shorten(rid, chain, pairs, t_i, t_j, half, float(width), flags, warnings)
-        else:
-            for i, j in pairs:
-                flags[j].append("crosses_section")
-                warnings.append(f"reach {rid}: section {j} (chainage {chain[j]:.1f} m) crosses section {i} (chainage {chain[i]:.1f} m)")
-    stations = [np.linspace(0.0, 2 * hw, max(int(math.ceil(2 * hw / step - 1e-9)), 2) + 1) for hw in half]
-    left_end = centre + half[:, None] * left_normal
-    right_end = centre - half[:, None] * left_normal
-    elevations = _sample_profiles(dem, left_end, right_end, stations)
+    half = _side_lengths(rid, line, chain, centre, left_normal, dem, float(spacing), float(width), step,
+                         repair, others, rise, rise_margin, flags, warnings)
+    stations = [_stations_about_centre(hl, hr, step) for hl, hr in half]
+    left_end = centre + half[:, :1] * left_normal
+    right_end = centre - half[:, 1:] * left_normal
+    lines = [LineString([a, b]) for a, b in zip(left_end, right_end)]
+    sections = build_sections(rid, chain, lines, stations, _sample_profiles(dem, left_end, right_end, stations),
+                              flags, warnings)
+    return ReachGeometry(reach_id=rid, centreline=line, sections=tuple(sections),
+                         lengths=_lengths(chain, centre, left_normal, half), warnings=tuple(warnings))
+
+
+def _side_lengths(rid, line, chain, centre, normal, dem, spacing, width, step, repair, others, rise, rise_margin,
+                  flags, warnings) -> np.ndarray:
+    """(N, 2) left / right lengths of every section: adaptive width, confluences, then crossings."""
+    half = np.full((chain.size, 2), 0.5 * width)
+    if rise is not None:
+        margin = 0.5 * step if rise_margin is None else float(rise_margin)
+        half, capped = adaptive_halves(dem, centre, normal, 0.5 * width, step, float(rise),
+                                       max(0.25 * spacing, step), margin)
+        for k in np.flatnonzero(capped.any(axis=1)):
+            flags[k].append("width_capped")
+    if others is not None:
+        half = confluence_halves(rid, chain, centre, normal, half, others, step, flags, warnings, own=line)
+        _check_width_left(rid, chain, half, width)
+    pairs, t_i, t_j = _crossings(centre, normal, half)
+    if pairs.size and repair:
+        return _shorten(rid, chain, pairs, t_i, t_j, half, width, flags, warnings)
+    for i, j in pairs:
+        flags[j].append("crosses_section")
+        warnings.append(f"reach {rid}: section {j} (chainage {chain[j]:.1f} m) crosses section {i} (chainage {chain[i]:.1f} m)")
+    return half
+
+
+def _stations_about_centre(left: float, right: float, step: float) -> np.ndarray:
+    """Stations 0 .. left + right with the centreline point (station ``left``) always sampled.
+
+    Each side is divided evenly into steps of at most ``step`` (at least 2 segments in all).
+    """
+    n_l = int(math.ceil(left / step - 1e-9)) if left > 0 else 0
+    n_r = int(math.ceil(right / step - 1e-9)) if right > 0 else 0
+    if n_l + n_r < 2:
+        return np.linspace(0.0, left + right, 3)
+    return np.concatenate((np.linspace(0.0, left, n_l + 1), left + np.linspace(0.0, right, n_r + 1)[1:]))
+
+
+def build_sections(rid: str, chain, lines, stations, elevations, flags, warnings) -> list[Section]:
+    """Section records from sampled profiles; short nodata runs filled, long ones an error."""
     sections = []
-    for k in range(chain.size):
+    for k in range(len(chain)):
         z, filled = fill_small_gaps(elevations[k], MAX_GAP_SAMPLES)
         if z is None:
             raise GeometryError(
@@ -81,14 +134,50 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
         if filled:
             flags[k].append("ground_gap_filled")
             warnings.append(f"reach {rid}: section {k} (chainage {chain[k]:.1f} m): {filled} nodata sample(s) interpolated")
-        sections.append(Section(
-            reach_id=rid, section_id=k, chainage=float(chain[k]),
-            line=LineString([left_end[k], right_end[k]]), station=stations[k], elevation=z,
-            flags=tuple(flags[k]),
-        ))
-    lengths = _lengths(chain, centre, left_normal, half)
-    return ReachGeometry(reach_id=rid, centreline=line, sections=tuple(sections), lengths=lengths,
-                         warnings=tuple(warnings))
+        sections.append(Section(reach_id=rid, section_id=k, chainage=float(chain[k]), line=lines[k],
+                                station=stations[k], elevation=z, flags=tuple(flags[k])))
+    return sections
+
+
+def orient_centreline(reach_id: str, line: LineString, dem) -> tuple[LineString, str | None]:
+    """Check the drawn direction of a centreline against the DEM; reverse it if drawn upstream.
+
+    The bed near each end is the median, over the first (last) 10 % of the line, of the lowest
+    ground on short perpendicular profiles (:func:`geoflow.sidelimits.end_bed_levels`). If the
+    start lies lower than the end by more than max(0.05 m, 1e-4 x length) the line was drawn
+    upstream: the reversed line and a warning are returned. Flat reaches (within the tolerance)
+    and ends with no DEM data are left as drawn. Returns (line, warning or None).
+    """
+    rid = str(reach_id)
+    line2 = shapely.force_2d(line)
+    z_start, z_end = end_bed_levels(line2, dem)
+    tol = max(0.05, 1e-4 * float(line2.length))
+    if not (np.isfinite(z_start) and np.isfinite(z_end)):
+        return line, f"reach {rid}: direction of flow not checked (no DEM data near an end of the centreline)"
+    if z_end - z_start > tol:
+        return shapely.reverse(line), (
+            f"reach {rid}: centreline drawn upstream (bed {z_start:.2f} m at its start, {z_end:.2f} m at its "
+            "end); reversed - draw centrelines in the direction of flow")
+    return line, None
+
+
+def sections_from_lines(reach_id: str, centreline: LineString, lines, dem, sample_step: float | None = None,
+                        source=None) -> ReachGeometry:
+    """Sections from user-drawn section lines; see :func:`geoflow.userlines.sections_from_lines`."""
+    from .userlines import sections_from_lines as _from_lines
+
+    return _from_lines(reach_id, centreline, lines, dem, sample_step=sample_step, source=source)
+
+
+def _check_width_left(rid: str, chain, half: np.ndarray, width: float) -> None:
+    total = half.sum(axis=1)
+    bad = np.flatnonzero(total < _MIN_WIDTH_FRACTION * width)
+    if bad.size:
+        k = int(bad[0])
+        raise GeometryError(
+            f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) keeps only {total[k]:.1f} m between other "
+            "reaches' centrelines; end this reach's centreline before the junction or reduce [sections] width"
+        )
 
 
 def fill_small_gaps(values: np.ndarray, max_gap: int = MAX_GAP_SAMPLES) -> tuple[np.ndarray | None, int]:
@@ -163,7 +252,7 @@ def _frame(rid: str, line: LineString, chain: np.ndarray, smoothing: float, h_mi
 
 def _crossings(centre: np.ndarray, normal: np.ndarray, half: np.ndarray):
     """Pairs (i < j) of crossing sections and the signed distances of the crossing from each centre."""
-    lines = shapely.linestrings(np.stack((centre + half[:, None] * normal, centre - half[:, None] * normal), axis=1))
+    lines = shapely.linestrings(np.stack((centre + half[:, :1] * normal, centre - half[:, 1:] * normal), axis=1))
     i, j = shapely.STRtree(lines).query(lines, predicate="intersects")
     keep = i < j
     i, j = i[keep], j[keep]
@@ -182,26 +271,29 @@ def _shorten(rid, chain, pairs, t_i, t_j, half, width, flags, warnings) -> np.nd
     """Shorten one section of each crossing pair to just short of the crossing point.
 
     The section crossed farther from its own centre is shortened (ties: the downstream one),
-    symmetrically about the centreline. Shortening only removes line, so no new crossing can
-    appear and one pass resolves every pair.
+    both sides to at most 98 % of that distance (symmetric about the centreline when the sides
+    were equal). Shortening only removes line, so no new crossing can appear and one pass
+    resolves every pair.
     """
     new = half.copy()
     pick_i = np.abs(t_i) > np.abs(t_j)
     which = np.where(pick_i, pairs[:, 0], pairs[:, 1])
-    np.minimum.at(new, which, _SHORTEN_FACTOR * np.where(pick_i, np.abs(t_i), np.abs(t_j)))
-    too_short = np.flatnonzero(2 * new < _MIN_WIDTH_FRACTION * width)
+    limit = np.full(half.shape[0], np.inf)
+    np.minimum.at(limit, which, _SHORTEN_FACTOR * np.where(pick_i, np.abs(t_i), np.abs(t_j)))
+    new = np.minimum(new, limit[:, None])
+    too_short = np.flatnonzero(new.sum(axis=1) < _MIN_WIDTH_FRACTION * width)
     if too_short.size:
         k = int(too_short[0])
         raise GeometryError(
-            f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) crosses a neighbour within {new[k]:.1f} m of the "
+            f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) crosses a neighbour within {limit[k]:.1f} m of the "
             "centreline (sharp bend); smooth the centreline, or reduce [sections] width or spacing"
         )
-    for k in np.flatnonzero(new < half):
+    for k in np.flatnonzero((new < half).any(axis=1)):
         flags[k].append("shortened")
         others = np.concatenate((pairs[pairs[:, 0] == k, 1], pairs[pairs[:, 1] == k, 0]))
         warnings.append(
             f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) crossed section(s) "
-            f"{', '.join(str(int(o)) for o in np.unique(others))}; shortened from {2 * half[k]:.1f} m to {2 * new[k]:.1f} m"
+            f"{', '.join(str(int(o)) for o in np.unique(others))}; shortened from {half[k].sum():.1f} m to {new[k].sum():.1f} m"
         )
     return new
 
@@ -211,18 +303,13 @@ def _sample_profiles(dem, left_end, right_end, stations) -> list[np.ndarray]:
     frac = [s / s[-1] for s in stations]
     xs = [left_end[k, 0] + f * (right_end[k, 0] - left_end[k, 0]) for k, f in enumerate(frac)]
     ys = [left_end[k, 1] + f * (right_end[k, 1] - left_end[k, 1]) for k, f in enumerate(frac)]
-    allx, ally = np.concatenate(xs), np.concatenate(ys)
-    cells = (np.ptp(allx) / dem.cell_size + 2) * (np.ptp(ally) / dem.cell_size + 2)
-    if cells <= _ONE_READ_CELLS:
-        z = dem.sample(allx, ally)
-        return np.split(z, np.cumsum([x.size for x in xs])[:-1])
-    return [dem.sample(x, y) for x, y in zip(xs, ys)]
+    return sample_many(dem, xs, ys)
 
 
 def _lengths(chain, centre, normal, half) -> np.ndarray:
     """(N-1, 3) reach lengths: left overbank, channel, right overbank (see cut_sections)."""
-    left_mid = centre + 0.5 * half[:, None] * normal
-    right_mid = centre - 0.5 * half[:, None] * normal
+    left_mid = centre + 0.5 * half[:, :1] * normal
+    right_mid = centre - 0.5 * half[:, 1:] * normal
     return np.column_stack((
         np.hypot(*np.diff(left_mid, axis=0).T),
         np.diff(chain),
@@ -230,21 +317,41 @@ def _lengths(chain, centre, normal, half) -> np.ndarray:
     ))
 
 
-def overbank_lengths(geom: ReachGeometry) -> np.ndarray:
+def overbank_lengths(geom: ReachGeometry, weighted: bool = True) -> np.ndarray:
     """(N-1, 3) lengths using each section's bank stations (``part`` must be set).
 
-    Left (right) overbank length = distance between the mid-points of the left (right)
-    overbank ground of consecutive sections (a stand-in for the path through the overbank
-    centroid); channel length = chainage difference along the centreline.
+    Left (right) overbank length = distance between the centroids of the left (right)
+    overbank ground strips of consecutive sections, a stand-in for the flow path through each
+    overbank's centroid of flow. With ``weighted`` each segment of the strip weighs
+    (segment length) x (highest ground of the strip - segment ground), the depth under a level
+    at the strip's highest ground, as a proxy for where the flow goes; a flat strip (or
+    ``weighted=False``) gives the mid-point of the strip. An empty strip uses its bank point.
+    Channel length = chainage difference along the centreline. (Common practice, no source.)
     """
-    mids = []
+    lines, where = [], []
     for sec in geom.sections:
         lb, rb = sec.bank_stations
-        mids.append(shapely.line_interpolate_point(sec.line, [0.5 * lb, 0.5 * (rb + sec.station[-1])]))
-    xy = shapely.get_coordinates(np.asarray(mids).ravel()).reshape(-1, 2, 2)
+        lines.append(sec.line)
+        where.append([_strip_centroid(sec, sec.station <= lb + 1e-9, lb, weighted),
+                      _strip_centroid(sec, sec.station >= rb - 1e-9, rb, weighted)])
+    pts = shapely.line_interpolate_point(np.repeat(np.asarray(lines, dtype=object), 2), np.ravel(where))
+    xy = shapely.get_coordinates(pts).reshape(-1, 2, 2)
     chain = np.array([s.chainage for s in geom.sections])
     return np.column_stack((
         np.hypot(*np.diff(xy[:, 0], axis=0).T),
         np.diff(chain),
         np.hypot(*np.diff(xy[:, 1], axis=0).T),
     ))
+
+
+def _strip_centroid(sec, inside: np.ndarray, bank: float, weighted: bool) -> float:
+    """Station of the (weighted) centroid of the ground points ``inside`` (one overbank strip)."""
+    st, z = sec.station[inside], sec.elevation[inside]
+    if st.size < 2:
+        return float(bank)
+    ds = np.diff(st)
+    mid = 0.5 * (st[:-1] + st[1:])
+    w = ds * ((z.max() - 0.5 * (z[:-1] + z[1:])) if weighted else 1.0)
+    if not np.any(w > 1e-12 * max(ds.sum(), 1.0)):
+        w = ds
+    return float(np.sum(w * mid) / np.sum(w))

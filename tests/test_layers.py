@@ -127,3 +127,25 @@ def test_numeric_class_codes_become_text(tmp_path):
     # Common practice, no source: land-cover layers often store integer class codes.
     path = write_layer(tmp_path / "codes.gpkg", [shapely.box(0, 0, 1, 1), shapely.box(1, 0, 2, 1)], code=[3, 41])
     assert list(read_landcover(path, UTM, "code").classes) == ["3", "41"]
+
+
+def test_section_lines_grouped_by_reach_and_reprojected(tmp_path):
+    # Reference: pyproj Transformer EPSG:4326 -> UTM 33N on the same vertices (always_xy); a
+    # MultiLineString whose parts join end to end becomes one line; file order is kept per reach.
+    from geoflow.layers import read_section_lines
+
+    a1 = LineString([(15.000, 52.000), (15.001, 52.001)])
+    a2 = MultiLineString([[(15.010, 52.000), (15.011, 52.001)], [(15.011, 52.001), (15.012, 52.001)]])
+    b1 = LineString([(15.020, 52.000), (15.020, 52.002)])
+    path = write_layer(tmp_path / "xs.gpkg", [a1, b1, a2], crs="EPSG:4326", reach_id=["a", "b", "a"])
+    out = read_section_lines(path, RioCRS.from_epsg(32633))
+    assert sorted(out) == ["a", "b"] and len(out["a"]) == 2 and len(out["b"]) == 1
+    to_utm = Transformer.from_crs("EPSG:4326", UTM, always_xy=True)
+    np.testing.assert_allclose(np.asarray(out["a"][0].coords), np.column_stack(to_utm.transform(*np.asarray(a1.coords).T)),
+                               atol=1e-6)
+    assert out["a"][1].geom_type == "LineString" and len(out["a"][1].coords) == 3
+    bad = write_layer(tmp_path / "bad.gpkg", [a1, b1], reach_id=["a", ""])
+    msg = one_line_error(read_section_lines, bad, UTM)
+    assert "bad.gpkg" in msg and "feature 1" in msg and "reach_id" in msg
+    split = write_layer(tmp_path / "split.gpkg", [MultiLineString([[(0, 0), (1, 1)], [(5, 5), (6, 6)]])], reach_id=["a"])
+    assert "feature 0" in one_line_error(read_section_lines, split, UTM)

@@ -197,3 +197,106 @@ def test_files_to_roughness_end_to_end(tmp_path):
     for sec in out.sections:
         assert sec.bank_stations == (40.0, 60.0)
         np.testing.assert_allclose(sec.elevation, 5.0 + 0.01 * sec.chainage, atol=1e-9)
+
+
+def test_composite_n_by_part_hand_arithmetic():
+    # Horton/Einstein composite n_c = [sum(P_i n_i^1.5) / P]^(2/3) (Chow 1959, ch. 6), by hand:
+    # left: P = 1, 1 with n = 0.04, 0.09 -> (0.008 + 0.027) / 2 = 0.0175; channel: a 1 x 0.75 m
+    # slope (P = 1.25, n = 0.04) and a flat 1 m (n = 0.09) -> (0.010 + 0.027) / 2.25; no right overbank.
+    import dataclasses
+
+    from geoflow.records import Section
+    from geoflow.roughness import composite_n_by_part
+
+    sec = Section("r", 0, 0.0, shapely.LineString([(0, 0), (4, 0)]), np.arange(5.0),
+                  np.array([2.0, 2.0, 2.0, 1.25, 1.25]))
+    sec = dataclasses.replace(sec, n=np.array([0.04, 0.09, 0.04, 0.09]),
+                              part=np.array([LEFT_OVERBANK, LEFT_OVERBANK, CHANNEL, CHANNEL], dtype=np.int8))
+    n_lob, n_ch, n_rob = composite_n_by_part(sec)
+    assert n_lob == pytest.approx(0.0175 ** (2 / 3), rel=1e-12)
+    assert n_ch == pytest.approx((0.037 / 2.25) ** (2 / 3), rel=1e-12)
+    assert np.isnan(n_rob)
+    with pytest.raises(RoughnessError, match="assign_roughness"):
+        composite_n_by_part(dataclasses.replace(sec, n=None))
+
+
+def test_read_class_table(tmp_path):
+    from geoflow.errors import InputDataError
+    from geoflow.roughness import read_class_table
+
+    good = tmp_path / "n.csv"
+    good.write_text("\ufeffClass, n ,n_low,n_high\nwater,0.030,0.025,0.033\ngrass, 0.035 ,,\n\nforest,0.1,0.08,0.12\n")
+    assert read_class_table(good) == {"water": {"n": 0.03, "n_low": 0.025, "n_high": 0.033},
+                                      "grass": {"n": 0.035}, "forest": {"n": 0.1, "n_low": 0.08, "n_high": 0.12}}
+    cases = [
+        ("class,n\nwater,0.03\ngrass,1.5\n", "row 3 (class 'grass'): n = 1.5 is outside 0.005-1"),
+        ("class,n\nwater,abc\n", "row 2 (class 'water'): n = 'abc' is not a number"),
+        ("class,n\nwater,0.03\nwater,0.04\n", "row 3: class 'water' is listed twice"),
+        ("class,n,n_low\nwater,0.03,0.04\n", "row 2 (class 'water'): need n_low <= n <= n_high"),
+        ("class,n,n_hi\nwater,0.03,0.04\n", "unknown column 'n_hi' (did you mean 'n_high'?)"),
+        ("class,manning\nwater,0.03\n", "column 'n' not found"),
+        ("class,n\n,0.03\n", "row 2 has no class name"),
+        ("class,n\n", "no rows"),
+    ]
+    for k, (text, words) in enumerate(cases):
+        path = tmp_path / f"bad{k}.csv"
+        path.write_text(text)
+        with pytest.raises(InputDataError) as err:
+            read_class_table(path)
+        assert words in str(err.value) and str(path) in str(err.value) and "\n" not in str(err.value)
+    with pytest.raises(InputDataError, match="cannot read"):
+        read_class_table(tmp_path / "missing.csv")
+
+
+def test_reference_entry_suggests_the_closest_key():
+    from geoflow.ntables import reference_entry
+
+    assert reference_entry(" Dense_Willows ").normal == 0.150  # Chow (1959) Table 5-6, REFERENCES.md 3.6
+    with pytest.raises(RoughnessError) as err:
+        reference_entry("pasture_short_gras")
+    msg = str(err.value)
+    assert "did you mean 'pasture_short_grass'?" in msg and "concrete_float" in msg and "\n" not in msg
+
+
+def test_segments_of_a_dog_leg_section_take_the_cover_under_them():
+    # A dog-legged user section runs 20 m north-south, then 20 m east-west: its segment mid-points
+    # follow the polyline (shapely line_interpolate_point), so the east-west leg lies in the forest box.
+    from geoflow.sections import sections_from_lines
+
+    dem = SurfaceDem()
+    centre = shapely.LineString([(0, 0), (200, 0)])
+    lines = [shapely.LineString([(50, 10), (50, -10), (70, -10)]), shapely.LineString([(150, 10), (150, -10)])]
+    geom = sections_from_lines("d", centre, lines, dem, sample_step=1.0)
+    lc = cover((shapely.box(-10, -9, 210, 20), "water"), (shapely.box(-10, -20, 210, -9), "forest"))
+    out = assign_roughness(geom, lc, "water", N_TABLE)
+    sec = out.sections[0]
+    np.testing.assert_array_equal(sec.landcover, ["water"] * 19 + ["forest"] * 21)
+    assert sec.bank_stations == (0.0, 19.0)
+
+
+def test_overbank_paths_through_weighted_centroids_on_a_bend():
+    # Analytic geometry: ground z = 0.1 |r - R| on a bend of radius R, radial sections 100 m wide,
+    # channel cover R - 10 < r < R + 10. The inner overbank strip runs r = R - 50 .. R - 10 with
+    # weight (z_max - z) = 0.1 (r - (R - 50)), linear in r, so its centroid lies two thirds of the
+    # way to the bank, at r = R - 50 + 40 x 2/3; the outer one mirrors it at R + 50 - 40 x 2/3.
+    # Path length between sections dtheta apart: chord 2 r sin(dtheta / 2). Unweighted: r = R -+ 30.
+    from geoflow.sections import overbank_lengths
+
+    r, spacing = 300.0, 50.0
+    th = np.linspace(0.0, 1.0, 3000)
+    line = shapely.LineString(np.column_stack((r * np.cos(th), r * np.sin(th))))
+
+    def annulus(r0, r1):
+        t = np.linspace(-0.2, 1.2, 800)
+        return shapely.Polygon(np.vstack((np.column_stack((r0 * np.cos(t), r0 * np.sin(t))),
+                                          np.column_stack((r1 * np.cos(t[::-1]), r1 * np.sin(t[::-1]))))))
+
+    dem = SurfaceDem(lambda x, y: 0.1 * np.abs(np.hypot(x, y) - r))
+    geom = cut_sections("bend", line, dem, spacing=spacing, width=100, sample_step=0.5)
+    lc = cover((annulus(r - 60, r - 10), "grass"), (annulus(r - 10, r + 10), "water"), (annulus(r + 10, r + 60), "forest"))
+    out = assign_roughness(geom, lc, "water", N_TABLE)
+    dth = np.diff([s.chainage for s in out.sections]) / r
+    for col, radius in ((0, r - 50 + 40 * 2 / 3), (2, r + 50 - 40 * 2 / 3)):
+        np.testing.assert_allclose(out.lengths[1:-1, col], (2 * radius * np.sin(dth / 2))[1:-1], rtol=2e-3)
+    flat = overbank_lengths(out, weighted=False)
+    np.testing.assert_allclose(flat[1:-1, 0], (2 * (r - 30) * np.sin(dth / 2))[1:-1], rtol=2e-3)
