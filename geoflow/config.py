@@ -16,7 +16,8 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Mapping
 
-from .errors import ConfigError
+from .errors import ConfigError, GeoflowError
+from .ntables import read_class_table, reference_entry
 
 REGIMES = ("subcritical", "supercritical", "mixed")
 BOUNDARY_TYPES = ("normal_depth", "stage", "critical", "rating", "junction")
@@ -43,6 +44,7 @@ class ReachesConfig:
     centrelines: Path
     layer: str | None = None
     id_field: str = "reach_id"
+    check_direction: bool = True      # compare the drawn direction with the DEM; reverse (and warn) if upstream
 
 
 @dataclass(frozen=True)
@@ -50,6 +52,9 @@ class SectionsConfig:
     spacing: float
     width: float
     sample_step: float | None = None
+    rise: float | None = None          # adaptive width: each side ends where ground is this far above the bed
+    lines: Path | None = None          # user-drawn section lines (replace automatic ones for the reaches given)
+    lines_layer: str | None = None
     reaches: Mapping[str, "SectionsConfig"] = field(default_factory=lambda: MappingProxyType({}))
 
     def for_reach(self, reach_id: str) -> "SectionsConfig":
@@ -74,6 +79,7 @@ class RoughnessConfig:
     classes: Mapping[str, RoughnessClass]
     layer: str | None = None
     default_n: float | None = None
+    table: Path | None = None           # CSV class table (class,n[,n_low,n_high]); TOML classes override it
 
     def n_table(self) -> dict[str, float]:
         return {name: c.n for name, c in self.classes.items()}
@@ -213,6 +219,13 @@ class _Reader:
             return v
         raise AssertionError(kind)
 
+    def flag(self, tbl: Mapping, key: str, where: str, default: bool) -> bool:
+        v = tbl.get(key, default)
+        if not isinstance(v, bool):
+            self.problem(f"{where} {key}", f"must be true or false, got {v!r}")
+            return default
+        return v
+
     def path(self, tbl: Mapping, key: str, where: str, required: bool = True) -> Path | None:
         text = self.value(tbl, key, where, "string", required=required)
         if text is None:
@@ -263,31 +276,35 @@ def _read_reaches(r: _Reader, doc: dict) -> ReachesConfig | None:
     t = r.table(doc, "reaches", "[reaches]")
     if t is None:
         return None
-    r.known(t, ("centrelines", "layer", "id_field"), "[reaches]")
+    r.known(t, ("centrelines", "layer", "id_field", "check_direction"), "[reaches]")
     path = r.existing(t, "centrelines", "[reaches]")
     layer = r.value(t, "layer", "[reaches]", "string")
     id_field = r.value(t, "id_field", "[reaches]", "string", default="reach_id")
-    return ReachesConfig(centrelines=path, layer=layer, id_field=id_field) if path else None
+    check = r.flag(t, "check_direction", "[reaches]", True)
+    return ReachesConfig(centrelines=path, layer=layer, id_field=id_field, check_direction=check) if path else None
 
 
 def _read_sections(r: _Reader, doc: dict) -> SectionsConfig | None:
     t = r.table(doc, "sections", "[sections]")
     if t is None:
         return None
-    r.known(t, ("spacing", "width", "sample_step", "reaches"), "[sections]")
+    r.known(t, ("spacing", "width", "sample_step", "rise", "lines", "lines_layer", "reaches"), "[sections]")
     base = _read_section_keys(r, t, "[sections]", None)
+    lines = r.existing(t, "lines", "[sections]") if "lines" in t else None
+    lines_layer = r.value(t, "lines_layer", "[sections]", "string")
     overrides = {}
     for rid, sub in (r.table(t, "reaches", "[sections.reaches]", required=False) or {}).items():
         where = f"[sections.reaches.{rid}]"
         if not isinstance(sub, dict):
             r.problem(where, "must be a table with spacing, width and/or sample_step")
             continue
-        r.known(sub, ("spacing", "width", "sample_step"), where)
+        r.known(sub, ("spacing", "width", "sample_step", "rise"), where)
         if base is not None and (o := _read_section_keys(r, sub, where, base)) is not None:
             overrides[str(rid)] = o
     if base is None:
         return None
-    return SectionsConfig(base.spacing, base.width, base.sample_step, reaches=MappingProxyType(overrides))
+    return SectionsConfig(base.spacing, base.width, base.sample_step, rise=base.rise, lines=lines,
+                          lines_layer=lines_layer, reaches=MappingProxyType(overrides))
 
 
 def _read_section_keys(r: _Reader, t: dict, where: str, base: SectionsConfig | None) -> SectionsConfig | None:
@@ -295,11 +312,12 @@ def _read_section_keys(r: _Reader, t: dict, where: str, base: SectionsConfig | N
     spacing = r.value(t, "spacing", where, "number positive", required=need, default=base and base.spacing)
     width = r.value(t, "width", where, "number positive", required=need, default=base and base.width)
     step = r.value(t, "sample_step", where, "number positive", default=base and base.sample_step)
+    rise = r.value(t, "rise", where, "number positive", default=base and base.rise)
     if width is not None and step is not None and step >= width / 4:
         r.problem(f"{where} sample_step", f"{step:g} m is too coarse for a {width:g} m wide section; use at most width/4")
     if spacing is None or width is None:
         return None
-    return SectionsConfig(spacing=spacing, width=width, sample_step=step)
+    return SectionsConfig(spacing=spacing, width=width, sample_step=step, rise=rise)
 
 
 def _read_class(r: _Reader, name: str, t: Any) -> RoughnessClass | None:
@@ -307,8 +325,10 @@ def _read_class(r: _Reader, name: str, t: Any) -> RoughnessClass | None:
     if not isinstance(t, dict):
         r.problem(where, f"must be a table with n = ..., got {t!r}")
         return None
-    r.known(t, ("n", "n_low", "n_high", "n_by_depth", "n_by_discharge"), where)
-    vals = {k: r.value(t, k, where, "number positive", required=(k == "n")) for k in ("n", "n_low", "n_high")}
+    r.known(t, ("n", "n_low", "n_high", "n_by_depth", "n_by_discharge", "reference"), where)
+    ref = _reference(r, t, where)
+    vals = {k: r.value(t, k, where, "number positive", required=(k == "n" and ref is None), default=ref and ref[k])
+            for k in ("n", "n_low", "n_high")}
     for k, v in vals.items():
         if v is not None and not 0.005 <= v <= 1.0:
             r.problem(f"{where} {k}", f"Manning's n = {v:g} is outside 0.005-1.0; check the units (s/m^(1/3))")
@@ -322,6 +342,19 @@ def _read_class(r: _Reader, name: str, t: Any) -> RoughnessClass | None:
     if len(laws) == 2:
         r.problem(where, "give n_by_depth or n_by_discharge, not both")
     return RoughnessClass(n=n, n_low=lo, n_high=hi, **{k: v for k, v in laws.items() if v})
+
+
+def _reference(r: _Reader, t: dict, where: str) -> dict | None:
+    """n, n_low, n_high from the built-in table of typical values (``reference = "<key>"``)."""
+    key = r.value(t, "reference", where, "string")
+    if key is None:
+        return None
+    try:
+        row = reference_entry(key)
+    except GeoflowError as exc:
+        r.problem(f"{where} reference", str(exc))
+        return None
+    return {"n": row.normal, "n_low": row.minimum, "n_high": row.maximum}
 
 
 def _read_n_law(r: _Reader, v: Any, where: str) -> tuple[tuple[float, float], ...]:
@@ -346,21 +379,32 @@ def _read_roughness(r: _Reader, doc: dict) -> RoughnessConfig | None:
     t = r.table(doc, "roughness", "[roughness]")
     if t is None:
         return None
-    keys = ("landcover", "layer", "class_field", "channel_class", "default_n", "classes")
+    keys = ("landcover", "layer", "class_field", "channel_class", "default_n", "classes", "table")
     r.known(t, keys, "[roughness]")
     path = r.existing(t, "landcover", "[roughness]")
     layer = r.value(t, "layer", "[roughness]", "string")
     field_ = r.value(t, "class_field", "[roughness]", "string", required=True)
     channel = r.value(t, "channel_class", "[roughness]", "string", required=True)
     default_n = r.value(t, "default_n", "[roughness]", "number positive")
-    raw = r.table(t, "classes", "[roughness.classes]", required=True) or {}
-    classes = {str(k): c for k, v in raw.items() if (c := _read_class(r, str(k), v)) is not None}
-    if raw and channel is not None and channel not in raw and default_n is None:
+    table = r.existing(t, "table", "[roughness]") if "table" in t else None
+    classes = _read_csv_classes(r, table) if table is not None and table.exists() else {}
+    raw = r.table(t, "classes", "[roughness.classes]", required=table is None) or {}
+    classes.update({str(k): c for k, v in raw.items() if (c := _read_class(r, str(k), v)) is not None})
+    if classes and channel is not None and channel not in classes and default_n is None:
         r.problem("[roughness] channel_class", f"{channel!r} has no [roughness.classes.{channel}] table; add one")
     if not (path and field_ and channel):
         return None
     return RoughnessConfig(landcover=path, layer=layer, class_field=field_, channel_class=channel,
-                           classes=MappingProxyType(classes), default_n=default_n)
+                           classes=MappingProxyType(classes), default_n=default_n, table=table)
+
+
+def _read_csv_classes(r: _Reader, path: Path) -> dict[str, RoughnessClass]:
+    try:
+        rows = read_class_table(path)
+    except GeoflowError as exc:
+        r.problem("[roughness] table", str(exc))
+        return {}
+    return {k: RoughnessClass(n=v["n"], n_low=v.get("n_low"), n_high=v.get("n_high")) for k, v in rows.items()}
 
 
 def _read_discharge(r: _Reader, v: Any, where: str) -> float | Mapping[str, float] | None:

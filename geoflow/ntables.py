@@ -6,12 +6,14 @@ sensitivity run). Values are s/m^(1/3) (the same number in SI and US customary u
 """
 from __future__ import annotations
 
+import csv
 import difflib
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
-from .errors import RoughnessError
+from .errors import InputDataError, RoughnessError
 
 _CHOW = "Chow (1959) Open-Channel Hydraulics, Table 5-6"
 
@@ -107,3 +109,76 @@ def cowan_n(n_b, n1=0.0, n2=0.0, n3=0.0, n4=0.0, m=1.0):
         raise RoughnessError(f"Cowan n: meander factor m = {m!r} must be >= 1 (1.00 minor to 1.30 severe)")
     total = (arrays["n_b"] + arrays["n1"] + arrays["n2"] + arrays["n3"] + arrays["n4"]) * mm
     return float(total) if total.ndim == 0 else total
+
+
+N_RANGE = (0.005, 1.0)   # accepted Manning's n in a class table, s/m^(1/3)
+
+
+def read_class_table(path) -> dict[str, dict]:
+    """Read a roughness class table (CSV) -> ``{class: {"n": .., "n_low": .., "n_high": ..}}``.
+
+    Columns: ``class``, ``n`` and optionally ``n_low``, ``n_high`` (header names are
+    case-insensitive; empty optional cells are left out). Every n must lie in 0.005-1 and
+    n_low <= n <= n_high. Each bad row raises one :class:`InputDataError` naming file and row.
+    """
+    path = Path(path)
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as fh:
+            rows = list(csv.reader(fh))
+    except OSError as exc:
+        raise InputDataError(f"{path}: cannot read the roughness table ({exc.strerror or exc}); check the path") from None
+    except UnicodeDecodeError:
+        raise InputDataError(f"{path}: roughness table is not UTF-8 text; save it as CSV (UTF-8)") from None
+    if not rows:
+        raise InputDataError(f"{path}: roughness table is empty; give a header row class,n[,n_low,n_high]")
+    header = [h.strip().lower() for h in rows[0]]
+    _check_header(path, header)
+    out: dict[str, dict] = {}
+    for line_no, row in enumerate(rows[1:], start=2):
+        if not any(c.strip() for c in row):
+            continue
+        cells = dict(zip(header, (c.strip() for c in row)))
+        name = cells.get("class", "")
+        if not name:
+            raise InputDataError(f"{path}: row {line_no} has no class name; fill the 'class' column")
+        if name in out:
+            raise InputDataError(f"{path}: row {line_no}: class {name!r} is listed twice; keep one row per class")
+        out[name] = _class_row(path, line_no, name, cells)
+    if not out:
+        raise InputDataError(f"{path}: roughness table has a header but no rows; add one row per land-cover class")
+    return out
+
+
+def _check_header(path: Path, header: list[str]) -> None:
+    known = ("class", "n", "n_low", "n_high")
+    for col in ("class", "n"):
+        if col not in header:
+            raise InputDataError(f"{path}: column {col!r} not found in the header ({', '.join(header)}); "
+                                 "the header must be class,n[,n_low,n_high]")
+    for col in header:
+        if col not in known:
+            hint = difflib.get_close_matches(col, known, n=1)
+            extra = f" (did you mean {hint[0]!r}?)" if hint else ""
+            raise InputDataError(f"{path}: unknown column {col!r}{extra}; columns are class,n[,n_low,n_high]")
+
+
+def _class_row(path: Path, line_no: int, name: str, cells: dict) -> dict:
+    entry = {}
+    for col in ("n", "n_low", "n_high"):
+        text = cells.get(col, "")
+        if not text:
+            if col == "n":
+                raise InputDataError(f"{path}: row {line_no} (class {name!r}) has no n; give Manning's n")
+            continue
+        try:
+            v = float(text)
+        except ValueError:
+            raise InputDataError(f"{path}: row {line_no} (class {name!r}): {col} = {text!r} is not a number") from None
+        if not (N_RANGE[0] <= v <= N_RANGE[1]):
+            raise InputDataError(f"{path}: row {line_no} (class {name!r}): {col} = {v:g} is outside "
+                                 f"{N_RANGE[0]}-{N_RANGE[1]}; check the value (s/m^(1/3))")
+        entry[col] = v
+    if not entry.get("n_low", entry["n"]) <= entry["n"] <= entry.get("n_high", entry["n"]):
+        raise InputDataError(f"{path}: row {line_no} (class {name!r}): need n_low <= n <= n_high, got "
+                             f"{entry.get('n_low')} / {entry['n']} / {entry.get('n_high')}")
+    return entry

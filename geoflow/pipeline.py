@@ -5,12 +5,13 @@ terrain/layers read inputs, hydraulics/ computes, mapping/outputs/report write.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
-from pathlib import Path
+import dataclasses
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from shapely.geometry import Point
+import shapely
+from shapely.geometry import Point, box
 
 from . import layers, roughness, sections, terrain
 from .config import BoundarySpec, Config, Event
@@ -35,12 +36,18 @@ class Inputs:
     """Opened inputs shared by every reach of a config (no open file handles: picklable)."""
 
     dem: terrain.Dem
-    reaches: tuple[tuple[str, object], ...]     # (reach_id, LineString in DEM CRS)
+    reaches: tuple[tuple[str, object], ...]     # (reach_id, LineString in DEM CRS, drawn downstream)
     cover: object                               # layers.LandCover
+    user_lines: dict = field(default_factory=dict)   # reach_id -> [LineString] user section lines
+    warnings: dict = field(default_factory=dict)     # reach_id -> [str] (e.g. direction reversed)
 
 
 def open_inputs(cfg: Config) -> Inputs:
-    """Open the DEM, centrelines and land cover and check them against the roughness table."""
+    """Open the DEM, centrelines and land cover and check them against the roughness table.
+
+    Centrelines drawn upstream (judged from the DEM) are reversed here, so every later stage,
+    junctions included, sees them in the direction of flow.
+    """
     dem = terrain.open_dem(cfg.terrain.dem, cfg.terrain.vertical_unit)
     reaches = layers.read_centrelines(cfg.reaches.centrelines, dem.crs, layer=cfg.reaches.layer,
                                       id_field=cfg.reaches.id_field)
@@ -48,7 +55,31 @@ def open_inputs(cfg: Config) -> Inputs:
                                   layer=cfg.roughness.layer)
     _check_classes(cfg, cover)
     _check_events(cfg, [rid for rid, _ in reaches])
-    return Inputs(dem=dem, reaches=tuple(reaches), cover=cover)
+    warnings: dict = {}
+    if cfg.reaches.check_direction:
+        reaches = [_oriented(rid, line, dem, warnings) for rid, line in reaches]
+    user = {}
+    if cfg.sections.lines is not None:
+        user = layers.read_section_lines(cfg.sections.lines, dem.crs, layer=cfg.sections.lines_layer,
+                                         id_field=cfg.reaches.id_field)
+        unknown = sorted(set(user) - {rid for rid, _ in reaches})
+        if unknown:
+            raise ConfigError(f"{cfg.sections.lines}: section lines name reach(es) {', '.join(map(repr, unknown))} "
+                              f"that are not in {cfg.reaches.centrelines.name}; fix the {cfg.reaches.id_field!r} values")
+    return Inputs(dem=dem, reaches=tuple(reaches), cover=cover, user_lines=user, warnings=warnings)
+
+
+def _oriented(rid: str, line, dem, warnings: dict):
+    """The centreline in the direction of flow (only lines inside the DEM are checked)."""
+    if not shapely.contains(box(*dem.bounds), line):
+        return rid, line
+    try:
+        fixed, note = sections.orient_centreline(rid, line, dem)
+    except GeoflowError:
+        return rid, line
+    if note:
+        warnings.setdefault(rid, []).append(note)
+    return rid, fixed
 
 
 def _check_classes(cfg: Config, cover) -> None:
@@ -95,11 +126,23 @@ def _check_events(cfg: Config, reach_ids: list[str]) -> None:
 
 
 def build_geometry(cfg: Config, inputs: Inputs, reach_id: str, line) -> ReachGeometry:
-    """Cut and sample cross-sections of one reach and give each segment its Manning's n."""
+    """Cut (or take the user's) cross-sections of one reach, sample them, give each segment its n."""
     sc = cfg.sections.for_reach(reach_id)
-    geom = sections.cut_sections(reach_id, line, inputs.dem, sc.spacing, sc.width, sample_step=sc.sample_step)
-    return roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
+    if reach_id in inputs.user_lines:
+        geom = sections.sections_from_lines(reach_id, line, inputs.user_lines[reach_id], inputs.dem,
+                                            sample_step=sc.sample_step, source=cfg.sections.lines)
+    else:
+        # A section stops short of other reaches' centrelines, except those of tributaries that join
+        # this reach (their mouth lies in this reach's floodplain, which carries their flow too).
+        feeders = {rid for rid, target in junction_order(cfg, [r for r, _ in inputs.reaches]).items()
+                   if target == reach_id}
+        others = {rid: other for rid, other in inputs.reaches if rid != reach_id and rid not in feeders}
+        geom = sections.cut_sections(reach_id, line, inputs.dem, sc.spacing, sc.width, sample_step=sc.sample_step,
+                                     others=others, rise=sc.rise)
+    geom = roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
                                       default_n=cfg.roughness.default_n)
+    notes = tuple(inputs.warnings.get(reach_id, ()))
+    return dataclasses.replace(geom, warnings=notes + tuple(geom.warnings)) if notes else geom
 
 
 def discharge_along(event: Event, reach_id: str, chainage: np.ndarray) -> np.ndarray:
