@@ -22,6 +22,7 @@ from .errors import ConfigError, GeoflowError, HydraulicsError
 from .manifest import part_paths
 from .mapping import map_reach
 from .naming import safe_name
+from .roughness import composite_n_by_part
 
 
 @functools.lru_cache(maxsize=4)
@@ -127,8 +128,10 @@ def _write_sections_part(cfg: Config, geom) -> None:
     rows = []
     for s in geom.sections:
         lb, rb = s.bank_stations
+        n_lob, n_ch, n_rob = composite_n_by_part(s)
         rows.append({"reach_id": geom.reach_id, "section_id": s.section_id, "chainage_m": s.chainage,
                      "left_bank_station_m": lb, "right_bank_station_m": rb, "bed_m": s.bed_elevation,
+                     "n_left_overbank": n_lob, "n_channel": n_ch, "n_right_overbank": n_rob,
                      "flags": ";".join(s.flags), "geometry": s.line})
     gdf = gpd.GeoDataFrame(rows, geometry="geometry", crs=_crs_wkt(cfg))
     outputs.write_sections_gpkg(part_paths(cfg.run.output_dir, safe_name(geom.reach_id))["sections"], gdf)
