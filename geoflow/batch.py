@@ -28,7 +28,7 @@ from shapely.geometry import box
 
 from . import CAUTION, assemble, manifest, pipeline
 from .config import Config, load_config
-from .errors import GeometryError, GeoflowError
+from .errors import GeometryError, GeoflowError, OutputError
 from .naming import safe_name
 from .records import ReachGeometry
 from .tasks import compute_reach
@@ -196,8 +196,12 @@ def _start_logging(out_dirs: list[Path]) -> list[logging.Handler]:
     handlers = []
     log.setLevel(logging.INFO)
     for d in out_dirs:
-        d.mkdir(parents=True, exist_ok=True)
-        h = logging.FileHandler(d / LOG_NAME, mode="a", encoding="utf-8")
+        try:
+            d.mkdir(parents=True, exist_ok=True)
+            h = logging.FileHandler(d / LOG_NAME, mode="a", encoding="utf-8")
+        except OSError as exc:
+            raise OutputError(f"{d}: cannot create the output folder or its {LOG_NAME} ({exc.strerror or exc}); "
+                              "check [run] output_dir and its permissions") from None
         h.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
         log.addHandler(h)
         handlers.append(h)

@@ -259,6 +259,8 @@ def _read_run(r: _Reader, doc: dict) -> RunConfig | None:
     if name is not None and not SAFE_NAME.match(name):
         r.problem("[run] name", f"{name!r} must be letters, digits, '_', '-' or '.'")
     out = r.path(t, "output_dir", "[run]")
+    if out is not None and out.exists() and not out.is_dir():
+        r.problem("[run] output_dir", f"{out} exists and is not a folder; choose a folder name")
     return RunConfig(name=name, output_dir=out) if name and out else None
 
 

@@ -123,3 +123,17 @@ def test_per_reach_section_overrides_inherit_defaults(tmp_path, valley):
     edit(path, "width = 80.0", "widht = 80.0")
     with pytest.raises(ConfigError, match=r"\[sections.reaches.r1\] widht"):
         load_config(path)
+
+
+def test_output_dir_that_is_a_file_and_dem_that_is_not_a_raster(tmp_path, valley, capsys):
+    path = good_config(tmp_path, valley)
+    (tmp_path / "out").write_text("not a folder")
+    assert main(["run", str(path), "--quiet"]) == 2
+    assert "[run] output_dir" in capsys.readouterr().err
+    (tmp_path / "out").unlink()
+    (tmp_path / "notdem.tif").write_text("plain text, not a raster")
+    edit(path, 'dem = "dem.tif"', 'dem = "notdem.tif"')
+    assert main(["run", str(path), "--quiet"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "notdem.tif" in err and "raster" in err and len(err.splitlines()) == 1
+    assert not (tmp_path / "out").exists()
