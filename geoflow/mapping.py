@@ -8,8 +8,8 @@ same cell alignment) with WSE and depth rasters (float32, NaN where dry) and ext
 
 Method
 ------
-1. Window: bounds of all section lines plus a few cells, snapped to the DEM grid. Only that
-   window is read, so memory is bounded by the reach, never by the whole DEM.
+1. Window: bounds of all section lines plus a few cells, snapped to the DEM grid, cut into
+   blocks; only blocks that a section quad touches are read, one at a time.
 2. WSE surface: consecutive section lines i, i+1 form the quadrilateral
    (line i + reversed line i+1). Each quad is rasterised (cell-centre rule) with value i.
    For a cell inside quad i at distances d_i and d_{i+1} from the two section lines,
@@ -22,8 +22,11 @@ Method
 3. Depth = WSE - ground where positive and 8-connected (``scipy.ndimage.label``) to the
    channel seed: the wet cells under the rasterised centreline. Wet pockets behind high
    ground that do not touch the channel are dry.
-4. Extent: ``rasterio.features.shapes`` on the connected wet mask -> shapely polygons,
-   simplified to half a cell, repaired with ``make_valid``; parts under one cell are dropped.
+   Across blocks the labels are joined with a union-find (:mod:`geoflow.mapjoin`).
+4. Extent: ``rasterio.features.shapes`` on the connected wet components -> shapely
+   polygons merged across block edges, dry holes of at most ``mapjoin.MIN_HOLE_CELLS``
+   cells filled, rings simplified to half a cell, repaired with ``make_valid``; parts under
+   one cell are dropped.
 
 Coarser output grid: with ``cell_size`` an integer multiple k of the DEM cell size, the
 window is snapped to multiples of k cells from the DEM origin and the ground is block
@@ -31,7 +34,7 @@ averaged (k x k mean of the valid DEM cells), so the coarse grid stays aligned t
 Other values raise ConfigError naming ``[mapping] cell_size``.
 
 Large reaches: :func:`write_reach_maps` runs the same computation block by block
-(:mod:`geoflow.mapblocks`: per-block labels joined across block edges with a union-find)
+(:mod:`geoflow.mapblocks` per block, :mod:`geoflow.mapjoin` across blocks)
 and streams the rasters into Cloud-Optimised GeoTIFFs, so memory is bounded by the block
 size, not by the reach. :func:`map_reach` is the same engine with the whole window as one
 block (or ``block`` cells) kept in memory; both give the same cells.

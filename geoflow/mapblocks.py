@@ -1,0 +1,202 @@
+"""Per-block computations of the mapping engine (the join across blocks is in :mod:`geoflow.mapjoin`).
+
+A block is a window of the output grid: the reach window of the DEM grid, or a coarser grid
+aligned to it. For one block: read the ground (``dem.read(window)`` only), interpolate the
+WSE (and further per-section values) from the section quads whose bounds touch the block,
+wet = WSE > ground, label the wet cells (8-neighbour), find the labels under the
+centreline. Values at a cell depend only on its grid position, never on the block cut.
+"""
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+from affine import Affine
+from rasterio.features import rasterize
+from rasterio.windows import Window
+from scipy import ndimage
+from shapely.geometry import Polygon
+
+EIGHT = np.ones((3, 3), dtype=bool)
+CHUNK_CELLS = 1 << 20        # interpolate at most this many cells at once (bounds temporaries)
+
+
+class Surface:
+    """Section quads of one reach, ready to interpolate per-section values on any block.
+
+    ``values`` (k, N): row 0 is the WSE (m) and decides which quads exist (a NaN at either
+    end leaves the quad dry); further rows (e.g. friction slope) are interpolated with the
+    same weights. Quad i = section line i + reversed line i+1, repaired with make_valid.
+    """
+
+    def __init__(self, sections, values: np.ndarray):
+        self.values = np.atleast_2d(np.asarray(values, dtype=np.float64))
+        wse = self.values[0]
+        quads, index = [], []
+        for i in np.flatnonzero(np.isfinite(wse[:-1]) & np.isfinite(wse[1:])):
+            ring = list(sections[i].line.coords) + list(sections[i + 1].line.coords)[::-1]
+            quad = polygonal(shapely.make_valid(Polygon([c[:2] for c in ring])))
+            if quad is not None:
+                quads.append(quad)
+                index.append(i)
+        self.quads = np.array(quads, dtype=object)
+        self.index = np.array(index, dtype=np.int64)
+        self.bounds = shapely.bounds(self.quads) if quads else np.zeros((0, 4))
+        self.ends = np.array([_end_points(s.line) for s in sections])   # (N, 4): x0, y0, x1, y1
+
+    def touching(self, left: float, bottom: float, right: float, top: float) -> np.ndarray:
+        """Indices (into ``quads``) of the quads whose bounds meet the box."""
+        b = self.bounds
+        return np.flatnonzero((b[:, 0] <= right) & (b[:, 2] >= left) & (b[:, 1] <= top) & (b[:, 3] >= bottom))
+
+    def interpolate(self, grid_transform: Affine, row_off: int, col_off: int, shape_rc, sel=None) -> np.ndarray:
+        """(k, rows, cols) values on a block of the grid; NaN outside every quad.
+
+        Cell (r, c) of the block has its centre at grid cell (row_off + r, col_off + c), so
+        the numbers do not depend on how the grid is cut into blocks. A cell inside several
+        quads takes the lowest index (the most upstream pair).
+        """
+        out = np.full((self.values.shape[0],) + tuple(shape_rc), np.nan)
+        sel = self.touching(*block_bounds(grid_transform, row_off, col_off, shape_rc)) if sel is None else sel
+        if sel.size == 0:
+            return out
+        transform = grid_transform @ Affine.translation(col_off, row_off)
+        burn = [(self.quads[j], int(self.index[j])) for j in sel[::-1]]     # later shapes win
+        label = rasterize(burn, out_shape=shape_rc, transform=transform, fill=-1, dtype="int32").ravel()
+        cells = np.flatnonzero(label >= 0)
+        flat = out.reshape(out.shape[0], -1)
+        for start in range(0, cells.size, CHUNK_CELLS):
+            part = cells[start:start + CHUNK_CELLS]
+            flat[:, part] = self._weights_and_values(grid_transform, row_off, col_off, shape_rc[1], part, label[part])
+        return out
+
+    def _weights_and_values(self, gt, row_off, col_off, ncols, part, idx) -> np.ndarray:
+        """Inverse-distance (linear) blend of sections idx and idx+1 at the cells ``part``."""
+        rows, cols = np.divmod(part, ncols)
+        x = gt.c + gt.a * (cols + col_off + 0.5)
+        y = gt.f + gt.e * (rows + row_off + 0.5)
+        d_up = point_segment_distance(x, y, self.ends[idx])
+        d_dn = point_segment_distance(x, y, self.ends[idx + 1])
+        total = d_up + d_dn
+        w_up = np.divide(d_dn, total, out=np.ones_like(total), where=total > 0)
+        return w_up * self.values[:, idx] + (1.0 - w_up) * self.values[:, idx + 1]
+
+
+def polygonal(geom):
+    """Polygon parts of ``geom`` joined into one (Multi)Polygon, or None when there is no area."""
+    parts = shapely.get_parts(shapely.get_parts(geom))
+    parts = parts[(shapely.get_type_id(parts) == 3) & (shapely.area(parts) > 0)]
+    return shapely.union_all(parts) if len(parts) else None
+
+
+def _end_points(line) -> tuple[float, float, float, float]:
+    """First and last vertex of a section line (sections are straight 2-point lines)."""
+    c = np.asarray(line.coords)
+    return float(c[0, 0]), float(c[0, 1]), float(c[-1, 0]), float(c[-1, 1])
+
+
+def point_segment_distance(x: np.ndarray, y: np.ndarray, seg: np.ndarray) -> np.ndarray:
+    """Euclidean distance from points (x, y) to segments ``seg[:, [x0, y0, x1, y1]]``, row by row."""
+    x0, y0, x1, y1 = seg[:, 0], seg[:, 1], seg[:, 2], seg[:, 3]
+    dx, dy = x1 - x0, y1 - y0
+    len2 = dx * dx + dy * dy
+    t = np.divide((x - x0) * dx + (y - y0) * dy, len2, out=np.zeros_like(len2), where=len2 > 0)
+    t = np.clip(t, 0.0, 1.0)
+    return np.hypot(x - (x0 + t * dx), y - (y0 + t * dy))
+
+
+def block_bounds(grid_transform: Affine, row_off: int, col_off: int, shape_rc) -> tuple[float, float, float, float]:
+    """(left, bottom, right, top) of a block of a north-up grid."""
+    t = grid_transform
+    xs = (t.c + t.a * col_off, t.c + t.a * (col_off + shape_rc[1]))
+    ys = (t.f + t.e * row_off, t.f + t.e * (row_off + shape_rc[0]))
+    return min(xs), min(ys), max(xs), max(ys)
+
+
+@dataclass(frozen=True)
+class Grid:
+    """Output grid of a reach: DEM window ``dem_window``, coarsening ``factor``, block size."""
+
+    dem_window: Window            # on the DEM grid; width/height are multiples of factor
+    transform: Affine             # of the output grid
+    shape: tuple[int, int]        # output rows, cols
+    factor: int
+    block: int
+
+    def window(self, bi: int, bj: int) -> Window:
+        """Block (bi, bj) as a Window on the output grid."""
+        r0, c0 = bi * self.block, bj * self.block
+        return Window(c0, r0, min(self.block, self.shape[1] - c0), min(self.block, self.shape[0] - r0))
+
+    def blocks(self):
+        """(bi, bj, Window on the output grid) in row-major order."""
+        rows, cols = self.shape
+        for bi, r0 in enumerate(range(0, rows, self.block)):
+            for bj, c0 in enumerate(range(0, cols, self.block)):
+                yield bi, bj, Window(c0, r0, min(self.block, cols - c0), min(self.block, rows - r0))
+
+    def read_ground(self, dem, win: Window) -> np.ndarray:
+        """Ground (m, float64) on an output block, k x k mean of the valid DEM cells when coarse."""
+        f = self.factor
+        dem_win = Window(self.dem_window.col_off + win.col_off * f, self.dem_window.row_off + win.row_off * f,
+                         win.width * f, win.height * f)
+        z = dem.read(dem_win)
+        if f > 1:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)   # all-NaN blocks stay NaN
+                z = np.nanmean(z.reshape(win.height, f, win.width, f), axis=(1, 3))
+        return z
+
+
+@dataclass
+class BlockData:
+    """Everything computed on one block (output grid)."""
+
+    window: Window
+    transform: Affine
+    wse: np.ndarray
+    depth: np.ndarray               # NaN where dry
+    labels: np.ndarray              # int32, 0 = dry
+    count: int
+    seeded: np.ndarray              # local ids under the centreline
+    velocity: np.ndarray | None = None
+
+
+def compute_block(ctx, grid: Grid, win: Window) -> BlockData | None:
+    """WSE, depth, labels (and velocity) on one block; None when no quad touches it."""
+    shape_rc = (int(win.height), int(win.width))
+    box = block_bounds(grid.transform, win.row_off, win.col_off, shape_rc)
+    sel = ctx.surface.touching(*box)
+    if sel.size == 0:
+        return None
+    ground = grid.read_ground(ctx.dem, win)
+    vals = ctx.surface.interpolate(grid.transform, int(win.row_off), int(win.col_off), shape_rc, sel)
+    with np.errstate(invalid="ignore"):
+        depth = vals[0] - ground
+        wet = np.isfinite(depth) & (depth > 0)
+    depth[~wet] = np.nan
+    labels, count = ndimage.label(wet, structure=EIGHT)
+    transform = grid.transform @ Affine.translation(win.col_off, win.row_off)
+    seeded = np.zeros(0, dtype=np.int32)
+    line = shapely.clip_by_rect(ctx.centreline, box[0] - ctx.cell, box[1] - ctx.cell,
+                                box[2] + ctx.cell, box[3] + ctx.cell)
+    if count and not line.is_empty:
+        seed = rasterize([(line, 1)], out_shape=shape_rc, transform=transform, fill=0, all_touched=True,
+                         dtype="uint8").astype(bool)
+        seeded = np.unique(labels[seed & wet])
+    data = BlockData(win, transform, vals[0], depth, labels.astype(np.int32), int(count), seeded)
+    if ctx.velocity is not None and count:
+        data.velocity = ctx.velocity.on_block(win, transform, depth, vals[1])
+    return data
+
+
+def block_layers(data: BlockData, keep_local: np.ndarray) -> dict:
+    """float32 layers of a block, NaN except on the components with ``keep_local[label]``."""
+    mask = keep_local[data.labels]
+    out = {"wse": np.where(mask, data.wse, np.nan).astype(np.float32),
+           "depth": np.where(mask, data.depth, np.nan).astype(np.float32)}
+    if data.velocity is not None:
+        out["velocity"] = np.where(mask, data.velocity, np.nan).astype(np.float32)
+    return out
