@@ -13,6 +13,7 @@ import pandas as pd
 from . import outputs
 from .config import Config
 from .manifest import Manifest, part_paths, unit_key
+from .mosaic import mosaic_max
 from .naming import safe_name
 from .tasks import read_profile_parts
 
@@ -36,6 +37,7 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     result.paths["sections"] = outputs.write_sections_gpkg(out / "sections.gpkg", _sections(cfg, order, profile, crs))
     if "extent" in cfg.mapping.outputs:
         result.paths["extent"] = outputs.write_extent_gpkg(out / "inundation.gpkg", _extents(cfg, done, crs))
+    result.paths.update(_mosaics(cfg, done))
     man.data["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
     man.data["elapsed_s"] = round(result.elapsed_s, 3)
     man.data["failed_reaches"] = sorted(r for r, v in man.data["reaches"].items() if v.get("status") != "complete")
@@ -44,6 +46,22 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     result.profile = profile
     result.reaches = {rid: man.data["reaches"].get(rid, {"status": "failed", "error": "not computed"})
                       for rid in order}
+
+
+def _mosaics(cfg: Config, done: dict[str, list[str]]) -> dict:
+    """mosaic/<event>_max_<kind>.tif: the largest value over every reach (confluences overlap)."""
+    written = {}
+    for ev in cfg.events:
+        for kind in ("wse", "depth"):
+            if kind not in cfg.mapping.outputs:
+                continue
+            tifs = [cfg.run.output_dir / "rasters" / safe_name(rid) / f"{safe_name(ev.name)}_{kind}.tif"
+                    for rid, events in done.items() if ev.name in events]
+            tifs = [t for t in tifs if t.is_file()]
+            if len(tifs) >= 2:
+                path = cfg.run.output_dir / "mosaic" / f"{safe_name(ev.name)}_max_{kind}.tif"
+                written[f"mosaic_{ev.name}_{kind}"] = mosaic_max(tifs, path)
+    return written
 
 
 def _sections(cfg: Config, order: list[str], profile: pd.DataFrame, crs: str) -> gpd.GeoDataFrame:

@@ -22,7 +22,7 @@ from .ntables import read_class_table, reference_entry
 REGIMES = ("subcritical", "supercritical", "mixed")
 BOUNDARY_TYPES = ("normal_depth", "stage", "critical", "rating", "junction")
 FRICTION_SLOPE_METHODS = ("average_conveyance", "arithmetic", "geometric", "harmonic")
-MAPPING_OUTPUTS = ("wse", "depth", "extent", "report")
+MAPPING_OUTPUTS = ("wse", "depth", "velocity", "extent", "report")
 VERTICAL_UNITS = ("m", "ft", "us_ft")
 SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 

@@ -20,7 +20,7 @@ from . import CAUTION, outputs, pipeline, report
 from .config import Config, load_config
 from .errors import ConfigError, GeoflowError, HydraulicsError
 from .manifest import part_paths
-from .mapping import map_reach
+from .mapping import VelocityInputs, write_reach_maps
 from .naming import safe_name
 from .roughness import composite_n_by_part
 
@@ -94,7 +94,7 @@ def _compute_event(cfg: Config, inputs, geom, prof, ev) -> dict:
     t1 = time.perf_counter()
     try:
         rows = pipeline.profile_rows(geom, ev.name, prof)
-        files = _write_maps(cfg, inputs, geom, ev.name, np.asarray(prof.wse))
+        files = _write_maps(cfg, inputs, geom, ev.name, prof)
         parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(ev.name))
         outputs.write_profile_csv(parts["profile"], rows)
         t2 = time.perf_counter()
@@ -106,22 +106,30 @@ def _compute_event(cfg: Config, inputs, geom, prof, ev) -> dict:
             "max_depth_m": float(np.nanmax(rows["depth_m"])), "flagged_sections": flagged}
 
 
-def _write_maps(cfg: Config, inputs, geom, event: str, wse: np.ndarray) -> list[Path]:
-    kinds = [k for k in ("wse", "depth") if k in cfg.mapping.outputs]
+def _write_maps(cfg: Config, inputs, geom, event: str, prof) -> list[Path]:
+    """Rasters (block-wise COGs) and the extent part of one reach and event."""
+    kinds = [k for k in ("wse", "depth", "velocity") if k in cfg.mapping.outputs]
     parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(event))
     if not kinds and "extent" not in cfg.mapping.outputs:
         return []
-    m = map_reach(inputs.dem, geom, wse, cell_size=cfg.mapping.cell_size)
     rdir = cfg.run.output_dir / "rasters" / safe_name(geom.reach_id)
-    files = []
-    for kind in kinds:
-        files.append(outputs.write_raster(rdir / f"{safe_name(event)}_{kind}.tif", getattr(m, kind),
-                                          m.transform, m.crs))
+    paths = {k: rdir / f"{safe_name(event)}_{k}.tif" for k in kinds}
+    velocity = _velocity_inputs(cfg, inputs, prof) if "velocity" in kinds else None
+    m = write_reach_maps(inputs.dem, geom, np.asarray(prof.wse), paths, cell_size=cfg.mapping.cell_size,
+                         velocity=velocity)
     ext = gpd.GeoDataFrame({"reach_id": [geom.reach_id] * len(m.extent), "event": [event] * len(m.extent),
                             "area_m2": [p.area for p in m.extent]}, geometry=list(m.extent),
                            crs=inputs.dem.crs.to_wkt())
-    files.append(outputs.write_extent_gpkg(parts["extent"], ext))
-    return files
+    return list(paths.values()) + [outputs.write_extent_gpkg(parts["extent"], ext)]
+
+
+def _velocity_inputs(cfg: Config, inputs, prof) -> VelocityInputs:
+    """Velocity raster inputs: the profile's friction slope and each land-cover polygon's base n."""
+    table = cfg.roughness.n_table()
+    fallback = np.nan if cfg.roughness.default_n is None else cfg.roughness.default_n
+    n = np.array([table.get(str(c), fallback) for c in inputs.cover.classes], dtype=float)
+    return VelocityInputs(friction_slope=np.asarray(prof.friction_slope, dtype=float),
+                          landcover=(np.asarray(inputs.cover.geometries), n), default_n=cfg.roughness.default_n)
 
 
 def _write_sections_part(cfg: Config, geom) -> None:
