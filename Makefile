@@ -21,6 +21,8 @@ test: $(BIN)/.installed
 
 bench: $(BIN)/.installed
 	$(BIN)/python benchmarks/bench_hydraulics.py
+	$(BIN)/python benchmarks/bench_mapping.py --size 4000
+	$(BIN)/python benchmarks/bench_batch.py
 
 clean:
 	rm -rf out .pytest_cache .hypothesis
