@@ -1,0 +1,151 @@
+"""The validated configuration as frozen dataclasses (what the rest of geoflow reads).
+
+Built by :func:`geoflow.config.load_config`; see the README's config reference for every key.
+"""
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Mapping
+
+REGIMES = ("subcritical", "supercritical", "mixed")
+BOUNDARY_TYPES = ("normal_depth", "stage", "critical", "rating", "junction")
+FRICTION_SLOPE_METHODS = ("average_conveyance", "arithmetic", "geometric", "harmonic")
+MAPPING_OUTPUTS = ("wse", "depth", "velocity", "extent", "report")
+VERTICAL_UNITS = ("m", "ft", "us_ft")
+SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+
+
+@dataclass(frozen=True)
+class RunConfig:
+    name: str
+    output_dir: Path
+
+
+@dataclass(frozen=True)
+class TerrainConfig:
+    dem: Path
+    vertical_unit: str = "m"
+
+
+@dataclass(frozen=True)
+class ReachesConfig:
+    centrelines: Path
+    layer: str | None = None
+    id_field: str = "reach_id"
+    check_direction: bool = True      # compare the drawn direction with the DEM; reverse (and warn) if upstream
+
+
+@dataclass(frozen=True)
+class SectionsConfig:
+    spacing: float
+    width: float
+    sample_step: float | None = None
+    rise: float | None = None          # adaptive width: each side ends where ground is this far above the bed
+    lines: Path | None = None          # user-drawn section lines (replace automatic ones for the reaches given)
+    lines_layer: str | None = None
+    reaches: Mapping[str, "SectionsConfig"] = field(default_factory=lambda: MappingProxyType({}))
+
+    def for_reach(self, reach_id: str) -> "SectionsConfig":
+        """The per-reach override ([sections.reaches.<id>]) or these defaults."""
+        return self.reaches.get(reach_id, self)
+
+
+@dataclass(frozen=True)
+class RoughnessClass:
+    n: float
+    n_low: float | None = None
+    n_high: float | None = None
+    n_by_depth: tuple[tuple[float, float], ...] = ()       # ((local flow depth m, n), ...) increasing depth
+    n_by_discharge: tuple[tuple[float, float], ...] = ()   # ((reach discharge m3/s, n), ...) increasing Q
+
+
+@dataclass(frozen=True)
+class RoughnessConfig:
+    landcover: Path
+    class_field: str
+    channel_class: str
+    classes: Mapping[str, RoughnessClass]
+    layer: str | None = None
+    default_n: float | None = None
+    table: Path | None = None           # CSV class table (class,n[,n_low,n_high]); TOML classes override it
+
+    def n_table(self) -> dict[str, float]:
+        return {name: c.n for name, c in self.classes.items()}
+
+
+@dataclass(frozen=True)
+class FlowChange:
+    chainage: float
+    discharge: float
+    reach: str | None = None
+
+
+@dataclass(frozen=True)
+class Event:
+    name: str
+    discharge: float | Mapping[str, float]
+    changes: tuple[FlowChange, ...] = ()
+
+    def upstream_discharge(self, reach_id: str) -> float | None:
+        """Discharge (m3/s) at the upstream end of ``reach_id``; None if this event gives none."""
+        if isinstance(self.discharge, Mapping):
+            return self.discharge.get(reach_id)
+        return float(self.discharge)
+
+    def changes_for(self, reach_id: str) -> tuple[FlowChange, ...]:
+        return tuple(sorted((c for c in self.changes if c.reach in (None, reach_id)), key=lambda c: c.chainage))
+
+
+@dataclass(frozen=True)
+class BoundarySpec:
+    type: str
+    slope: float | None = None
+    wse: float | None = None
+    discharge: tuple[float, ...] = ()
+    stage: tuple[float, ...] = ()
+    reach: str | None = None          # junction: the reach this one flows into
+
+
+@dataclass(frozen=True)
+class BoundaryConfig:
+    downstream: BoundarySpec
+    regime: str = "subcritical"
+    upstream: BoundarySpec | None = None
+    reaches: Mapping[str, Mapping[str, BoundarySpec]] = field(default_factory=lambda: MappingProxyType({}))
+
+    def for_reach(self, reach_id: str) -> tuple[BoundarySpec, BoundarySpec | None]:
+        """(downstream, upstream) boundary of a reach: the per-reach override or the default."""
+        override = self.reaches.get(reach_id, {})
+        return override.get("downstream", self.downstream), override.get("upstream", self.upstream)
+
+
+@dataclass(frozen=True)
+class HydraulicsConfig:
+    friction_slope: str = "average_conveyance"
+    contraction: float = 0.1
+    expansion: float = 0.3
+    gravity: float = 9.80665
+
+
+@dataclass(frozen=True)
+class MappingConfig:
+    cell_size: float | None = None
+    outputs: tuple[str, ...] = MAPPING_OUTPUTS
+
+
+@dataclass(frozen=True)
+class Config:
+    path: Path
+    sha256: str
+    run: RunConfig
+    terrain: TerrainConfig
+    reaches: ReachesConfig
+    sections: SectionsConfig
+    roughness: RoughnessConfig
+    events: tuple[Event, ...]
+    boundary: BoundaryConfig
+    hydraulics: HydraulicsConfig = HydraulicsConfig()
+    mapping: MappingConfig = MappingConfig()
