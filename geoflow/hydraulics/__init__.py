@@ -1,7 +1,8 @@
 """Pure hydraulic engine: numpy/scipy only, no file I/O, no GIS objects.
 
 - ``geometry``: section property tables (area, wetted perimeter, top width, conveyance per
-  subdivision, alpha, beta, specific force), exact at any water-surface elevation.
+  subdivision, alpha, beta, specific force), exact at any water-surface elevation;
+  ``lookup``: the exact piecewise-polynomial level tables behind the fast evaluation.
 - ``critical``: critical WSE as the minimum of specific energy (compound sections included).
 - ``boundaries``: ``Boundary`` conditions and normal depth.
 - ``step`` / ``roots``: one standard-step energy balance; vectorised bracketed root finding.

@@ -10,7 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from geoflow.errors import HydraulicsError
-from geoflow.hydraulics.geometry import SectionTable, properties
+from geoflow.hydraulics.geometry import SectionTable, flow_state
 from geoflow.hydraulics.roots import bracketed_root
 
 KINDS = ("normal_depth", "stage", "critical", "rating")
@@ -96,7 +96,7 @@ def normal_wse(table: SectionTable, discharge, slope: float, xtol: float = 1e-9)
     relief = max(table.top - table.thalweg, 1.0)
     far = table.levels[-1] + relief * 2.0 ** np.arange(-3, 20)
     lv = np.concatenate([table.levels, far])
-    cap = np.concatenate([table.at_levels.conveyance, properties(table, far).conveyance]) * root_s
+    cap = np.concatenate([table.flow_at_levels[1], flow_state(table, far)[1]]) * root_s
     f = cap[None, :] - q[:, None]
     above = f >= 0
     if not np.all(above[:, -1]):
@@ -106,7 +106,7 @@ def normal_wse(table: SectionTable, discharge, slope: float, xtol: float = 1e-9)
     ev = np.arange(q.size)
 
     def fun(x, idx):
-        return properties(table, x).conveyance * root_s - q[idx]
+        return flow_state(table, x)[1] * root_s - q[idx]
 
     x, _ = bracketed_root(fun, lv[j - 1], lv[j], f[ev, j - 1], f[ev, j], xtol=xtol,
                           ftol=1e-9 * q.max())

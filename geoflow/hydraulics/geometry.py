@@ -22,6 +22,12 @@ Stage-dependent n: ``build_table(..., n_depth=(depths (k,), n_values (k, m-1)))`
 segment as a piecewise-linear function of the local flow depth over that segment (its wet
 area / wet top width; for a vertical segment the depth at its foot), clamped outside ``depths``. n that varies by discharge is supported by
 rebuilding the tables for each event.
+
+Two evaluations: ``properties`` clips every segment at the water line (the reference, cost
+proportional to the number of ground points); ``fast_properties`` and its lean subset
+``flow_state`` evaluate the exact interval polynomials of ``lookup.py`` built once per table
+(cost independent of the number of ground points; equal to ``properties`` up to rounding).
+Sections with a depth law for n always use the clipping.
 """
 from __future__ import annotations
 
@@ -30,6 +36,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from geoflow.errors import GeometryError
+from geoflow.hydraulics.lookup import LevelTable, build_level_table, evaluate, flow_terms
 
 CHANNEL_CODE = 1
 N_PARTS = 3
@@ -60,8 +67,9 @@ class SectionProperties:
 
 @dataclass(frozen=True, eq=False)
 class SectionTable:
-    """A section prepared for repeated evaluation; ``at_levels`` holds exact properties at
-    ``levels`` (every ground elevation plus refinement and some levels above the top)."""
+    """A section prepared for repeated evaluation at ``levels`` (every ground elevation plus
+    refinement and some levels above the top). ``lookup`` holds the exact interval polynomials
+    of ``lookup.py``; ``flow_at_levels`` the ``flow_state`` at ``levels``."""
 
     name: str
     station: np.ndarray          # (m,)
@@ -72,7 +80,17 @@ class SectionTable:
     subdivision_part: np.ndarray  # (S,) part code of each subdivision
     n_depth: tuple | None        # (depths (k,), n_values (k, m-1)) or None
     levels: np.ndarray           # (L,) ascending trial water-surface elevations
-    at_levels: SectionProperties
+    lookup: LevelTable | None    # None with a depth law for n (exact clipping is used then)
+    flow_at_levels: tuple = ()   # (area, conveyance, alpha (L,), part conveyance (L, 3))
+
+    @property
+    def at_levels(self) -> SectionProperties:
+        """All properties at ``levels`` (computed on first use)."""
+        cache = self.__dict__.get("_at_levels")
+        if cache is None:
+            cache = fast_properties(self, self.levels)
+            object.__setattr__(self, "_at_levels", cache)
+        return cache
 
     @property
     def thalweg(self) -> float:
@@ -99,8 +117,11 @@ def build_table(station, elevation, n, part, *, n_depth=None, name="section",
     relief = max(float(z.max() - z.min()), 1e-3)
     extra = max(relief, 1.0) if extra_height is None else float(extra_height)
     levels = _levels(z, relief, int(min_levels), extra)
-    table = SectionTable(name, x, z, nn, pp, sub, sub_part, nd, levels, None)
-    object.__setattr__(table, "at_levels", properties(table, levels))
+    to_part = np.zeros((sub_part.size, N_PARTS))
+    to_part[np.arange(sub_part.size), sub_part] = 1.0
+    lookup = None if nd is not None else build_level_table(x, z, nn ** 1.5, sub, to_part, levels)
+    table = SectionTable(name, x, z, nn, pp, sub, sub_part, nd, levels, lookup)
+    object.__setattr__(table, "flow_at_levels", flow_state(table, levels))
     return table
 
 
@@ -124,7 +145,7 @@ def _checked_arrays(station, elevation, n, part, name):
                             "and the section must have a width > 0")
     if not np.all(np.isfinite(nn) & (nn > 0)):
         raise GeometryError(f"section {name!r}: Manning's n must be finite and > 0 on every segment")
-    if not np.all(np.isin(pp, (0, 1, 2))):
+    if not np.all((pp == 0) | (pp == 1) | (pp == 2)):
         raise GeometryError(f"section {name!r}: part codes must be 0 (left overbank), "
                             "1 (channel) or 2 (right overbank)")
     return x, z, nn, pp.astype(np.int8)
@@ -221,7 +242,8 @@ def _cached(table):
 
 
 def properties(table: SectionTable, wse) -> SectionProperties:
-    """Exact properties of ``table`` at an array of water-surface elevations (flattened)."""
+    """Exact properties of ``table`` at an array of water-surface elevations (flattened), by
+    clipping every ground segment at the water line (the reference evaluation)."""
     w = np.asarray(wse, dtype=float).ravel()
     onehot, to_part, geom, n15 = _cached(table)
     area, top, perim, moment = wet_segments(table.station, table.elevation, w, geom)
@@ -230,13 +252,40 @@ def properties(table: SectionTable, wse) -> SectionProperties:
     right = np.maximum(w - table.elevation[-1], 0.0)
     perim[:, 0] += left
     perim[:, -1] += right
-    sub_a = area @ onehot
-    sub_p = perim @ onehot
+    return _assemble(table, w, area @ onehot, perim @ onehot, (perim * n15) @ onehot,
+                     top.sum(axis=1), moment.sum(axis=1))
+
+
+def fast_properties(table: SectionTable, wse) -> SectionProperties:
+    """Properties of ``table`` at elevations ``wse`` from its level table (``lookup``): the
+    same quantities as ``properties``, exact for the piecewise-linear ground up to rounding,
+    at a cost independent of the number of ground points. Sections with a depth law for n
+    use the exact clipping (n then varies non-linearly with the level)."""
+    if table.lookup is None:
+        return properties(table, wse)
+    w = np.asarray(wse, dtype=float).ravel()
+    sub_a, sub_t, sub_p, sub_ns, sub_m = evaluate(table.lookup, w)
+    return _assemble(table, w, sub_a, sub_p, sub_ns, sub_t.sum(axis=1), sub_m.sum(axis=1))
+
+
+def flow_state(table: SectionTable, wse):
+    """(area, conveyance, alpha, part conveyance (k, 3)) at ``wse``: the subset of
+    ``fast_properties`` that an energy balance needs, with less overhead."""
+    if table.lookup is None:
+        p = properties(table, wse)
+        return p.area, p.conveyance, p.alpha, p.part_conveyance
+    return flow_terms(table.lookup, wse)
+
+
+def _assemble(table, w, sub_a, sub_p, sub_ns, t_t, moment):
+    """SectionProperties from per-subdivision area, perimeter and N = sum P n^1.5: composite n
+    (N/P)^(2/3), Manning conveyance, alpha and beta (equations in the module docstring)."""
+    to_part = _cached(table)[1]
     with np.errstate(divide="ignore", invalid="ignore"):
-        sub_n = (((perim * n15) @ onehot) / sub_p) ** (2.0 / 3.0)
+        sub_n = (sub_ns / sub_p) ** (2.0 / 3.0)
         sub_k = sub_a * (sub_a / sub_p) ** (2.0 / 3.0) / sub_n
         sub_k[~((sub_a > 0) & (sub_p > 0))] = 0.0
-        a_t, k_t, t_t = sub_a.sum(axis=1), sub_k.sum(axis=1), top.sum(axis=1)
+        a_t, k_t = sub_a.sum(axis=1), sub_k.sum(axis=1)
         # alpha = sum u_i v_i^2, beta = sum u_i v_i with u_i = K_i/K_t and v_i = V_i/V_mean =
         # (K_i/A_i)/(K_t/A_t): the REFERENCES 3.1 formulas in scale-free form (no underflow)
         vel = np.where(sub_k > 0, sub_k / np.where(sub_k > 0, sub_a, 1.0), 0.0)
@@ -248,12 +297,12 @@ def properties(table: SectionTable, wse) -> SectionProperties:
         alpha[dry], beta[dry] = 1.0, 1.0
         hyd = np.where(t_t > 0, a_t / t_t, 0.0)
     return SectionProperties(
-        wse=w, depth=w - table.thalweg, area=a_t, wetted_perimeter=perim.sum(axis=1),
+        wse=w, depth=w - table.thalweg, area=a_t, wetted_perimeter=sub_p.sum(axis=1),
         top_width=t_t, conveyance=k_t, alpha=alpha, beta=beta,
-        first_moment=moment.sum(axis=1), hydraulic_depth=hyd, sub_area=sub_a,
+        first_moment=moment, hydraulic_depth=hyd, sub_area=sub_a,
         sub_perimeter=sub_p, sub_n=sub_n, sub_conveyance=sub_k,
         part_area=sub_a @ to_part, part_conveyance=sub_k @ to_part,
-        not_contained=(left > 0) | (right > 0))
+        not_contained=(w > table.elevation[0]) | (w > table.elevation[-1]))
 
 
 def specific_force(props: SectionProperties, discharge, g: float = 9.80665):

@@ -5,7 +5,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from geoflow.hydraulics.geometry import properties, specific_force
+from geoflow.hydraulics.geometry import fast_properties, specific_force
 from geoflow.hydraulics.step import CRITICAL, NO_CONVERGENCE
 
 
@@ -36,15 +36,13 @@ class Profile:
     specific_force: np.ndarray
 
 
-def _section_props(tables, wse):
-    """Properties of each section at its WSE, stacked into arrays (N,) / (N, 3)."""
-    ps = [properties(t, w) for t, w in zip(tables, wse)]
+def section_props(tables, wse):
+    """Properties of each section at its WSE for every event, ``wse`` (E, N): a dict of arrays
+    (E, N) and, for the part arrays, (E, N, 3). One evaluation per section for all events."""
+    ps = [fast_properties(t, wse[:, i]) for i, t in enumerate(tables)]
     names = ("area", "top_width", "wetted_perimeter", "conveyance", "alpha", "beta",
-             "first_moment", "not_contained")
-    out = {k: np.concatenate([getattr(p, k) for p in ps]) for k in names}
-    out["part_area"] = np.vstack([p.part_area for p in ps])
-    out["part_conveyance"] = np.vstack([p.part_conveyance for p in ps])
-    return out
+             "first_moment", "not_contained", "part_area", "part_conveyance")
+    return {k: np.stack([getattr(p, k) for p in ps], axis=1) for k in names}
 
 
 def _flags(status, boundary, jump, several, not_contained):
@@ -67,9 +65,9 @@ def _flags(status, boundary, jump, several, not_contained):
     return tuple(words)
 
 
-def assemble(tables, q, wc, wse, residual, status, boundary, jump, several, g) -> Profile:
-    """Build a Profile from per-section WSE (N,), discharge, critical WSE and solver status."""
-    p = _section_props(tables, wse)
+def assemble(p, q, wc, wse, residual, status, boundary, jump, several, g) -> Profile:
+    """Build a Profile from per-section properties ``p`` (one event of ``section_props``),
+    WSE (N,), discharge, critical WSE and solver status."""
     a, k = p["area"], p["conveyance"]
     share = p["part_conveyance"] / k[:, None]
     part_q = share * q[:, None]

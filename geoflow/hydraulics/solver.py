@@ -30,9 +30,9 @@ import numpy as np
 
 from geoflow.errors import HydraulicsError
 from geoflow.hydraulics.boundaries import Boundary, normal_wse  # noqa: F401  (re-exported)
-from geoflow.hydraulics.critical import critical_wse
-from geoflow.hydraulics.geometry import properties, specific_force
-from geoflow.hydraulics.profile import Profile, assemble
+from geoflow.hydraulics.critical import critical_many
+from geoflow.hydraulics.geometry import fast_properties, specific_force
+from geoflow.hydraulics.profile import Profile, assemble, section_props
 from geoflow.hydraulics.step import CRITICAL, NO_CONVERGENCE, OK, section_state, solve_step
 
 REGIMES = ("subcritical", "supercritical", "mixed")
@@ -117,7 +117,7 @@ def _mixed(tables, lengths, q, wc, sub, upstream, opts):
     jump = np.zeros((e, n), dtype=bool)
 
     def force(i, w, idx):
-        return specific_force(properties(tables[i], w), q[idx, i], opts.g)
+        return specific_force(fast_properties(tables[i], w), q[idx, i], opts.g)
 
     all_ev = np.arange(e)
     if upstream is not None:
@@ -138,6 +138,13 @@ def _mixed(tables, lengths, q, wc, sub, upstream, opts):
     return (wse, res, status), sup, jump
 
 
+def _critical(tables, q, g):
+    """Critical WSE (E, N) of every section and event (all sections refined together), and
+    where specific energy has several local minima."""
+    wse, _, minima = critical_many(tables, q, g)
+    return wse, minima > 1
+
+
 def solve_events(tables, lengths, discharges, downstream: Boundary | None = None,
                  upstream: Boundary | None = None, options: SolverOptions | None = None):
     """Solve E events at once on the same sections (vectorised across events).
@@ -151,9 +158,7 @@ def solve_events(tables, lengths, discharges, downstream: Boundary | None = None
     opts = options or SolverOptions()
     q, ln = _checked(tables, lengths, discharges)
     e, n = q.shape
-    crit = [critical_wse(t, q[:, i], opts.g) for i, t in enumerate(tables)]
-    wc = np.stack([c.wse for c in crit], axis=1)
-    several = np.stack([c.minima > 1 for c in crit], axis=1)
+    wc, several = _critical(tables, q, opts.g)
     boundary = np.zeros((e, n), dtype=bool)
     sup = np.zeros((e, n), dtype=bool)
     jump = np.zeros((e, n), dtype=bool)
@@ -172,8 +177,10 @@ def solve_events(tables, lengths, discharges, downstream: Boundary | None = None
         w0 = up.wse_at(tables[0], q[:, 0], wc[:, 0])
         result = _march(tables, ln, q, wc, w0, True, opts)
         boundary[:, 0] = True
-    return tuple(assemble(tables, q[k], wc[k], result[0][k], result[1][k], result[2][k],
-                          boundary[k], jump[k], several[k], opts.g) for k in range(e))
+    props = section_props(tables, result[0])
+    return tuple(assemble({f: v[k] for f, v in props.items()}, q[k], wc[k], result[0][k],
+                          result[1][k], result[2][k], boundary[k], jump[k], several[k], opts.g)
+                 for k in range(e))
 
 
 def solve_profile(tables, lengths, discharge, downstream: Boundary | None = None,

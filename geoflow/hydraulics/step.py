@@ -13,7 +13,9 @@ Open-Channel Hydraulics, ch. 10, standard-step method, from memory):
   the expansion coefficient where it falls (USACE EM 1110-2-1416, 1993, from memory).
 
 The unknown WSE is bracketed on a grid (table levels clipped to the wanted branch, plus points
-relative to critical and to the known energy) and refined by regula falsi (Illinois). Subcritical
+relative to critical and to the known energy; at the table levels the section's cached flow
+terms are used, so only the relative points are evaluated) and refined by regula falsi
+(Illinois). Subcritical
 steps take the root nearest above critical WSE, supercritical steps the root nearest below it.
 """
 from __future__ import annotations
@@ -22,7 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from geoflow.hydraulics.geometry import SectionTable, properties
+from geoflow.hydraulics.geometry import SectionTable, flow_state
 from geoflow.hydraulics.roots import bracketed_root
 
 OK, CRITICAL, NO_CONVERGENCE = 0, 1, 2
@@ -42,20 +44,22 @@ class State:
     conveyance: np.ndarray
     part_q: np.ndarray
 
-    def repeat(self, k: int) -> "State":
-        return State(*(np.repeat(getattr(self, f), k, axis=0) for f in
-                       ("wse", "energy", "head", "discharge", "conveyance", "part_q")))
+    def take(self, idx) -> "State":
+        """The state of events ``idx``."""
+        return State(self.wse[idx], self.energy[idx], self.head[idx], self.discharge[idx],
+                     self.conveyance[idx], self.part_q[idx])
 
 
 def section_state(table: SectionTable, wse, discharge, g: float) -> State:
-    """State at ``wse`` (flattened) with discharge broadcast to it."""
-    p = properties(table, wse)
-    q = np.broadcast_to(np.asarray(discharge, dtype=float).ravel(), p.area.shape)
+    """State at ``wse`` (flattened) with discharge broadcast to it; head = alpha Q^2/(2 g A^2)
+    and part discharges split Q in proportion to part conveyance."""
+    w = np.asarray(wse, dtype=float).ravel()
+    area, conv, alpha, part_k = flow_state(table, w)
+    q = np.broadcast_to(np.asarray(discharge, dtype=float).ravel(), w.shape)
     with np.errstate(divide="ignore", invalid="ignore"):
-        head = p.alpha * q * q / (2.0 * g * p.area ** 2)
-        share = np.where(p.conveyance[:, None] > 0,
-                         p.part_conveyance / p.conveyance[:, None], 1.0 / 3.0)
-    return State(p.wse, p.wse + head, head, q, p.conveyance, share * q[:, None])
+        head = alpha * q * q / (2.0 * g * area * area)
+        share = np.where(conv[:, None] > 0, part_k / conv[:, None], 1.0 / 3.0)
+    return State(w, w + head, head, q, conv, share * q[:, None])
 
 
 def reach_length(lengths, part_q_a, part_q_b):
@@ -78,40 +82,74 @@ def mean_friction_slope(q1, k1, q2, k2, rule: str):
 
 
 def step_residual(table, w, q, known: State, lengths, unknown_upstream: bool, opts):
-    """Energy-balance residual (m) at trial WSE ``w`` (e,) or (e, G) of the unknown section."""
-    k = 1 if w.ndim == 1 else w.shape[1]
-    kn = known if k == 1 else known.repeat(k)
-    st = section_state(table, w.ravel(), np.repeat(q, k), opts.g)
-    length = reach_length(lengths, kn.part_q, st.part_q)
-    sf = mean_friction_slope(kn.discharge, kn.conveyance, st.discharge, st.conveyance,
+    """Energy-balance residual (m) at trial WSE ``w`` (e,) or (e, G) of the unknown section;
+    the known state (e,) is broadcast along the trial axis."""
+    w2 = w.reshape(w.shape[0], -1)
+    area, conv, alpha, part_k = flow_state(table, w2.ravel())
+    flow = tuple(a.reshape(w2.shape) for a in (area, conv, alpha)) + \
+        (part_k.reshape(w2.shape + (3,)),)
+    return _balance(w2, flow, q, known, lengths, unknown_upstream, opts).reshape(w.shape)
+
+
+def _balance(w, flow, q, known: State, lengths, unknown_upstream: bool, opts):
+    """Residual E_unknown - (E_known +- losses) of the energy equation (module docstring) at
+    trial WSE ``w`` (e or 1, G) with the unknown section's (area, K, alpha, part K) ``flow``."""
+    area, conv, alpha, part_k = flow
+    qq = q[:, None]
+    with np.errstate(all="ignore"):  # dry trial levels give inf/nan, mapped to inf by callers
+        return _balance_terms(w, area, conv, alpha, part_k, qq, known, lengths,
+                              unknown_upstream, opts)
+
+
+def _balance_terms(w, area, conv, alpha, part_k, qq, known, lengths, unknown_upstream, opts):
+    """The terms of ``_balance``: velocity head, discharge-weighted length (``reach_length``
+    broadcast over trials), mean friction slope and eddy loss."""
+    head = alpha * qq * qq / (2.0 * opts.g * area * area)
+    share = part_k / conv[..., None]
+    share[~(conv > 0)] = 1.0 / 3.0
+    mean_q = 0.5 * (known.part_q[:, None, :] + share * qq[..., None])
+    length = (mean_q @ np.asarray(lengths, dtype=float)) / mean_q.sum(axis=2)
+    sf = mean_friction_slope(known.discharge[:, None], known.conveyance[:, None], qq, conv,
                              opts.friction_slope)
-    head_up, head_dn = (st.head, kn.head) if unknown_upstream else (kn.head, st.head)
+    kh = known.head[:, None]
+    head_up, head_dn = (head, kh) if unknown_upstream else (kh, head)
     coef = np.where(head_dn > head_up, opts.contraction, opts.expansion)
     loss = length * sf + coef * np.abs(head_dn - head_up)
-    target = kn.energy + loss if unknown_upstream else kn.energy - loss
-    return (st.energy - target).reshape(w.shape)
+    ke = known.energy[:, None]
+    target = ke + loss if unknown_upstream else ke - loss
+    return w + head - target
 
 
-def _grid(table: SectionTable, wc, known_energy, unknown_upstream: bool):
-    """Ascending trial WSE per event, (e, G), on the wanted side of critical WSE ``wc``."""
+def _grid(table: SectionTable, q, known: State, lengths, wc, unknown_upstream: bool, opts):
+    """Ascending trial WSE per event (e, G) on the wanted side of critical WSE ``wc``, and the
+    residuals there: every table level (clipped to the branch) plus points relative to ``wc``.
+    Residuals at the table levels come from the table's cached flow at its levels; only the
+    relative points (and ``wc``) are evaluated."""
     lv = table.levels[None, :]
     if unknown_upstream:
-        scale = np.maximum(known_energy - wc, 1e-3)[:, None]
+        scale = np.maximum(known.energy - wc, 1e-3)[:, None]
         rel = np.hstack([wc[:, None], wc[:, None] + scale * _ABOVE])
-        pts = np.hstack([np.maximum(lv, wc[:, None]), rel])
+        lo, hi = wc[:, None], np.full_like(rel[:, :1], np.inf)
     else:
-        depth = (wc - table.thalweg)[:, None]
-        rel = table.thalweg + depth * _BELOW
-        pts = np.hstack([np.clip(lv, rel[:, :1], wc[:, None]), rel])
-    return np.sort(pts, axis=1)
+        rel = table.thalweg + (wc - table.thalweg)[:, None] * _BELOW
+        lo, hi = rel[:, :1], wc[:, None]
+    r_ext = step_residual(table, np.hstack([rel, wc[:, None]]), q, known, lengths,
+                          unknown_upstream, opts)
+    flow = tuple(a[None] for a in table.flow_at_levels)
+    r_lv = _balance(lv, flow, q, known, lengths, unknown_upstream, opts)
+    r_lv = np.where(lv < lo, r_ext[:, :1], r_lv)  # clipped up to the lowest relative point
+    r_lv = np.where(lv > hi, r_ext[:, -1:], r_lv)
+    pts = np.hstack([np.clip(lv, lo, hi), rel])
+    order = np.argsort(pts, axis=1, kind="stable")
+    r = np.hstack([r_lv, r_ext[:, :-1]])
+    return np.take_along_axis(pts, order, 1), np.take_along_axis(r, order, 1)
 
 
 def solve_step(table: SectionTable, q, known: State, lengths, wc, unknown_upstream: bool, opts):
     """WSE of the unknown section per event. Returns (wse, residual, status) arrays (e,);
     where no root exists on the wanted branch the WSE is critical (status CRITICAL), and where
     the root finder misses the tolerance it is also critical (status NO_CONVERGENCE)."""
-    grid = _grid(table, wc, known.energy, unknown_upstream)
-    r = step_residual(table, grid, q, known, lengths, unknown_upstream, opts)
+    grid, r = _grid(table, q, known, lengths, wc, unknown_upstream, opts)
     r[np.isnan(r)] = np.inf  # no flow area at a trial level: treat as far too much energy
     pos = r >= 0
     ev = np.arange(q.size)
@@ -129,11 +167,11 @@ def solve_step(table: SectionTable, q, known: State, lengths, wc, unknown_upstre
     status = np.where(start_ok, NO_CONVERGENCE, CRITICAL)
     idx = np.flatnonzero(has)
     if idx.size:
+        kn_idx, q_idx = known.take(idx), q[idx]
+
         def fun(x, sub):
-            i = idx[sub]
-            kn = State(*(getattr(known, f)[i] for f in
-                         ("wse", "energy", "head", "discharge", "conveyance", "part_q")))
-            return step_residual(table, x, q[i], kn, lengths, unknown_upstream, opts)
+            return step_residual(table, x, q_idx[sub], kn_idx.take(sub), lengths,
+                                 unknown_upstream, opts)
 
         x, fx = bracketed_root(fun, a[idx], b[idx], fa[idx], fb[idx], xtol=1e-10,
                                ftol=1e-3 * opts.tolerance, maxiter=opts.max_iterations)
