@@ -8,6 +8,10 @@ from __future__ import annotations
 import time
 
 import geopandas as gpd
+import numpy as np
+import rasterio
+import shapely
+from shapely.geometry import box
 import pandas as pd
 
 from . import outputs
@@ -49,7 +53,11 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
 
 
 def _mosaics(cfg: Config, done: dict[str, list[str]]) -> dict:
-    """mosaic/<event>_max_<kind>.tif: the largest value over every reach (confluences overlap)."""
+    """mosaic/<event>_max_<kind>.tif: the largest value where reach rasters overlap (confluences).
+
+    Only the reaches whose raster windows overlap another reach's take part; with no overlap
+    there is nothing to merge and no mosaic is written.
+    """
     written = {}
     for ev in cfg.events:
         for kind in ("wse", "depth"):
@@ -57,11 +65,25 @@ def _mosaics(cfg: Config, done: dict[str, list[str]]) -> dict:
                 continue
             tifs = [cfg.run.output_dir / "rasters" / safe_name(rid) / f"{safe_name(ev.name)}_{kind}.tif"
                     for rid, events in done.items() if ev.name in events]
-            tifs = [t for t in tifs if t.is_file()]
+            tifs = _overlapping([t for t in tifs if t.is_file()])
             if len(tifs) >= 2:
                 path = cfg.run.output_dir / "mosaic" / f"{safe_name(ev.name)}_max_{kind}.tif"
                 written[f"mosaic_{ev.name}_{kind}"] = mosaic_max(tifs, path)
     return written
+
+
+def _overlapping(tifs: list) -> list:
+    """The rasters whose extent overlaps (with positive area) at least one other's."""
+    if len(tifs) < 2:
+        return []
+    boxes = []
+    for t in tifs:
+        with rasterio.open(t) as ds:
+            boxes.append(box(*ds.bounds))
+    boxes = np.array(boxes)
+    area = shapely.area(shapely.intersection(boxes[:, None], boxes[None, :]))
+    np.fill_diagonal(area, 0.0)
+    return [t for t, hit in zip(tifs, (area > 0).any(axis=1)) if hit]
 
 
 def _sections(cfg: Config, order: list[str], profile: pd.DataFrame, crs: str) -> gpd.GeoDataFrame:

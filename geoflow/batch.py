@@ -18,6 +18,7 @@ import concurrent.futures as cf
 import logging
 import multiprocessing
 import sys
+import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -177,7 +178,7 @@ def _engine(workers: int, scheduler: str | None):
         client = Client(scheduler, timeout="30s")
         return (lambda *a: client.submit(compute_reach, *a, pure=False)), as_completed, client.close
     if workers > 1:
-        pool = cf.ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"))
+        pool = cf.ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context())
         return (lambda *a: pool.submit(compute_reach, *a)), cf.as_completed, pool.shutdown
     return (lambda *a: _Deferred(a)), iter, lambda: None
 
@@ -190,6 +191,14 @@ class _Deferred:
 
     def result(self):
         return compute_reach(*self.args)
+
+
+def _pool_context():
+    """'fork' when it is safe (POSIX, no other threads: workers start without re-importing the GIS
+    stack, which dominates start-up); otherwise 'spawn'. Tasks open their own files either way."""
+    if "fork" in multiprocessing.get_all_start_methods() and threading.active_count() == 1:
+        return multiprocessing.get_context("fork")
+    return multiprocessing.get_context("spawn")
 
 
 def _start_logging(out_dirs: list[Path]) -> list[logging.Handler]:
