@@ -92,3 +92,23 @@ def test_check_writes_nothing_and_lists_sections(tmp_path, capsys):
     text = capsys.readouterr().out
     assert "r1" in text and "13 sections" in text     # 0, 50, ..., 600 m
     assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("regime", ["supercritical", "mixed"])
+def test_steep_channel_supercritical_and_mixed_regimes_give_normal_depth(tmp_path, regime):
+    # Steep smooth channel: Manning normal depth is supercritical (Fr > 1, Chow 1959 ch. 6 and 3);
+    # with normal depth imposed upstream the supercritical profile stays at y_n.
+    q, n, slope = 120.0, 0.012, 0.01   # y_n ~ 1.1 m: deep enough that the DEM rounding of the toes is < 1 %
+    v = make_valley(tmp_path, length=800.0, slope=slope)
+    yn = v.normal_depth(q, n)
+    extra = f'upstream = {{ type = "normal_depth", slope = {slope} }}\n'
+    cfg = write_config(tmp_path, v, discharge=q, n=n, boundary=f'{{ type = "normal_depth", slope = {slope} }}')
+    text = cfg.read_text().replace('regime = "subcritical"', f'regime = "{regime}"')
+    cfg.write_text(text.replace("downstream = {", extra + "downstream = {", 1))
+    res = geoflow.run(cfg)
+    assert not res.failed, res.reaches
+    p = res.profile
+    assert (p["froude"] > 1.0).all()
+    depth = p["wse_m"] - v.bed_at(v.x0 + p["chainage_m"])
+    assert np.all(np.abs(depth / yn - 1) < 0.02), (yn, depth.describe())
+    assert (p["regime"] == "supercritical").all()
