@@ -26,7 +26,7 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     """Write profile.csv, sections.gpkg, inundation.gpkg and the final manifest for one config."""
     out = cfg.run.output_dir
     units = man.data["units"]
-    order = [rid for rid, _ in inputs.reaches]
+    order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)
     done = {rid: [e.name for e in cfg.events if units.get(unit_key(rid, e.name), {}).get("status") == "complete"]
             for rid in order}
     profiles = []

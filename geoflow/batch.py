@@ -88,12 +88,12 @@ def precheck_reaches(cfg: Config, inputs: pipeline.Inputs) -> dict[str, str]:
         raise GeoflowError(f"{cfg.reaches.centrelines}: reach ids collide once made path-safe "
                            f"({', '.join(r for r, _ in inputs.reaches)}); give them distinct letters/digits")
     extent = box(*inputs.dem.bounds)
-    problems = {}
+    problems = dict(inputs.unusable)
     for rid, line in inputs.reaches:
         if not shapely.contains(extent, line):
             problems[rid] = (f"reach {rid!r}: centreline in {cfg.reaches.centrelines.name} runs outside the DEM "
                              f"{cfg.terrain.dem.name}; trim the line to the DEM or use a DEM that covers it")
-    if problems and len(problems) == len(inputs.reaches):
+    if problems and not set(r for r, _ in inputs.reaches) - set(problems):
         first = next(iter(problems.values()))
         more = f" (and {len(problems) - 1} more reach(es))" if len(problems) > 1 else ""
         raise GeometryError(first + more)
@@ -138,7 +138,7 @@ def _plan(config, resume: bool) -> _Plan:
     reuse = manifest.reusable_units(previous, cfg, hashes, safe_name) if resume else set()
     man = manifest.Manifest.start(cfg, hashes, previous, reuse)
     todo = {}
-    for rid, _ in inputs.reaches:
+    for rid in [r for r, _ in inputs.reaches] + list(inputs.unusable):
         if rid in problems:
             man.record_reach(rid, {"status": "failed", "error": problems[rid],
                                    "events": {e.name: {"status": "failed", "error": problems[rid]}

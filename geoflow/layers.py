@@ -51,32 +51,45 @@ class LandCover:
         return state
 
 
-def read_centrelines(path, crs, layer: str | None = None, id_field: str = "reach_id") -> list[tuple[str, LineString]]:
+def read_centrelines(path, crs, layer: str | None = None, id_field: str = "reach_id",
+                     problems: dict | None = None) -> list[tuple[str, LineString]]:
     """Read river centrelines (drawn in the direction of flow) as ``[(reach_id, LineString), ...]``.
 
     Lines are reprojected to ``crs`` (the DEM CRS), Z is dropped, and MultiLineStrings are
     joined with ``shapely.line_merge(directed=True)`` (parts are never reversed, so the flow
     direction is kept); a reach that stays multi-part is an error. Reach ids
     are strings (integral numbers lose their ``.0``) and must be unique and non-empty.
+
+    With a ``problems`` dict, a bad geometry (null, empty, not a line, parts that do not join,
+    zero length) makes only that reach unusable: it is left out of the result and its message
+    is stored under its id, so a batch can go on with the others. Without one it raises.
     """
     path = Path(path)
-    gdf, where = _read_layer(path, crs, layer, [id_field], _LINE_TYPES, "line")
+    gdf, where = _read_layer(path, crs, layer, [id_field], _LINE_TYPES, "line", check=problems is None)
     ids = _reach_ids(gdf[id_field].to_numpy(), where, id_field)
     geoms = shapely.force_2d(np.asarray(gdf.geometry.values, dtype=object))
-    multi = shapely.get_type_id(geoms) == shapely.GeometryType.MULTILINESTRING
-    if np.any(multi):
+    bad: dict[str, str] = {}
+    for i in np.flatnonzero(shapely.is_missing(geoms) | shapely.is_empty(geoms)):
+        bad[ids[i]] = f"{where}: reach {ids[i]} has a null or empty geometry; redraw or delete it"
+    kind = shapely.get_type_id(geoms)
+    ok = ~np.isin(ids, list(bad))
+    for i in np.flatnonzero(ok & ~np.isin(kind, [shapely.GeometryType.LINESTRING, shapely.GeometryType.MULTILINESTRING])):
+        bad[ids[i]] = f"{where}: reach {ids[i]} is not a line; draw the centreline as a LineString"
+    multi = np.flatnonzero(~np.isin(ids, list(bad)) & (kind == shapely.GeometryType.MULTILINESTRING))
+    if multi.size:
         geoms[multi] = shapely.line_merge(geoms[multi], directed=True)  # never reverses a part
-        still = np.flatnonzero(shapely.get_type_id(geoms) != shapely.GeometryType.LINESTRING)
-        if still.size:
-            bad = ", ".join(ids[still[:5]])
-            raise InputDataError(
-                f"{where}: centreline of reach {bad} has parts that do not join end to end in one direction; "
-                "draw each reach as one continuous line in the direction of flow"
-            )
-    short = np.flatnonzero(shapely.length(geoms) <= 0.0)
-    if short.size:
-        raise InputDataError(f"{where}: centreline of reach {', '.join(ids[short[:5]])} has zero length; redraw or delete it")
-    return [(str(i), g) for i, g in zip(ids, geoms)]
+    for i in np.flatnonzero(~np.isin(ids, list(bad)) & (shapely.get_type_id(geoms) != shapely.GeometryType.LINESTRING)):
+        bad[ids[i]] = (f"{where}: centreline of reach {ids[i]} has parts that do not join end to end in one "
+                       "direction; draw each reach as one continuous line in the direction of flow")
+    for i in np.flatnonzero(~np.isin(ids, list(bad))):
+        if shapely.length(geoms[i]) <= 0.0:
+            bad[ids[i]] = f"{where}: centreline of reach {ids[i]} has zero length; redraw or delete it"
+    if bad and (problems is None or len(bad) == len(ids)):
+        more = f" (and {len(bad) - 1} more reach(es))" if len(bad) > 1 else ""
+        raise InputDataError(next(iter(bad.values())) + more)
+    if problems is not None:
+        problems.update(bad)
+    return [(str(i), g) for i, g in zip(ids, geoms) if i not in bad]
 
 
 def read_section_lines(path, crs, layer: str | None = None, id_field: str = "reach_id") -> dict[str, list[LineString]]:
@@ -134,7 +147,7 @@ def read_landcover(path, crs, class_field: str, layer: str | None = None, bbox=N
     return LandCover(geometries=geoms, classes=classes, path=path, layer=layer, class_field=class_field)
 
 
-def _read_layer(path: Path, crs, layer, fields, allowed_types, kind, bbox=None):
+def _read_layer(path: Path, crs, layer, fields, allowed_types, kind, bbox=None, check: bool = True):
     """Validate and read one layer; return (GeoDataFrame in ``crs``, 'file (layer x)' label)."""
     import geopandas as gpd  # heavy import kept at the edge
 
@@ -173,7 +186,10 @@ def _read_layer(path: Path, crs, layer, fields, allowed_types, kind, bbox=None):
         gdf = gpd.read_file(path, layer=layer_name, engine="pyogrio", columns=list(fields), **kwargs)
     except Exception as exc:
         raise InputDataError(f"{where}: cannot read features ({_one_line(exc)}); check the file is not damaged") from None
-    _check_geometries(gdf, where + (f" within {tuple(bbox)}" if bbox is not None else ""), allowed_types, kind)
+    if check:
+        _check_geometries(gdf, where + (f" within {tuple(bbox)}" if bbox is not None else ""), allowed_types, kind)
+    elif len(gdf) == 0:
+        raise InputDataError(f"{where}: layer has no features; give a layer with {kind} features")
     if gdf.crs != target:
         gdf = gdf.to_crs(target)
     return gdf, where

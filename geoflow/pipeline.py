@@ -40,6 +40,7 @@ class Inputs:
     cover: object                               # layers.LandCover
     user_lines: dict = field(default_factory=dict)   # reach_id -> [LineString] user section lines
     warnings: dict = field(default_factory=dict)     # reach_id -> [str] (e.g. direction reversed)
+    unusable: dict = field(default_factory=dict)     # reach_id -> why its centreline cannot be used
 
 
 def open_inputs(cfg: Config) -> Inputs:
@@ -49,12 +50,13 @@ def open_inputs(cfg: Config) -> Inputs:
     junctions included, sees them in the direction of flow.
     """
     dem = terrain.open_dem(cfg.terrain.dem, cfg.terrain.vertical_unit)
+    bad: dict = {}
     reaches = layers.read_centrelines(cfg.reaches.centrelines, dem.crs, layer=cfg.reaches.layer,
-                                      id_field=cfg.reaches.id_field)
+                                      id_field=cfg.reaches.id_field, problems=bad)
     cover = layers.read_landcover(cfg.roughness.landcover, dem.crs, cfg.roughness.class_field,
                                   layer=cfg.roughness.layer)
     _check_classes(cfg, cover)
-    _check_events(cfg, [rid for rid, _ in reaches])
+    _check_events(cfg, [rid for rid, _ in reaches] + list(bad))
     warnings: dict = {}
     if cfg.reaches.check_direction:
         reaches = [_oriented(rid, line, dem, warnings) for rid, line in reaches]
@@ -62,11 +64,11 @@ def open_inputs(cfg: Config) -> Inputs:
     if cfg.sections.lines is not None:
         user = layers.read_section_lines(cfg.sections.lines, dem.crs, layer=cfg.sections.lines_layer,
                                          id_field=cfg.reaches.id_field)
-        unknown = sorted(set(user) - {rid for rid, _ in reaches})
+        unknown = sorted(set(user) - {rid for rid, _ in reaches} - set(bad))
         if unknown:
             raise ConfigError(f"{cfg.sections.lines}: section lines name reach(es) {', '.join(map(repr, unknown))} "
                               f"that are not in {cfg.reaches.centrelines.name}; fix the {cfg.reaches.id_field!r} values")
-    return Inputs(dem=dem, reaches=tuple(reaches), cover=cover, user_lines=user, warnings=warnings)
+    return Inputs(dem=dem, reaches=tuple(reaches), cover=cover, user_lines=user, warnings=warnings, unusable=bad)
 
 
 def _oriented(rid: str, line, dem, warnings: dict):

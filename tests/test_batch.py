@@ -132,3 +132,26 @@ def test_killed_run_resumes_to_identical_outputs(tmp_path):
     assert not resumed.failed
     assert not list(out.rglob(".*.tmp-*")), "temporary files of the killed run are cleared on resume"
     assert_same(outputs_of(clean.output_dir), outputs_of(out))
+
+
+def test_reach_with_broken_geometry_fails_alone(tmp_path, capsys):
+    """A null geometry and a multi-part line that does not join: those two reaches fail, r1/r2 run."""
+    from shapely.geometry import MultiLineString
+    from geoflow.cli import main
+    v = multi_valley(tmp_path, n_reaches=2, length=400.0)
+    gdf = gpd.read_file(v.centrelines)
+    line = gdf.geometry.iloc[0]
+    (x0, y0), (x1, y1) = line.coords[0], line.coords[-1]
+    extra = gpd.GeoDataFrame({"reach_id": ["empty", "split"]},
+                             geometry=[None, MultiLineString([[(x0, y0 + 5), (x0 + 100, y0 + 5)],
+                                                              [(x0 + 200, y0 + 5), (x0 + 300, y0 + 5)]])],
+                             crs=gdf.crs)
+    pd.concat([gdf, extra]).pipe(gpd.GeoDataFrame, crs=gdf.crs).to_file(v.centrelines, layer="centrelines",
+                                                                         driver="GPKG")
+    cfg = config_for(v, tmp_path / "g", "out_g")
+    assert main(["run", str(cfg), "--quiet"]) == 1
+    out = capsys.readouterr().out
+    assert "empty: FAILED" in out and "null or empty" in out and "split: FAILED" in out and "do not join" in out
+    man = json.loads((v.dem.parent / "out_g" / "manifest.json").read_text())
+    assert man["reaches"]["r1"]["status"] == man["reaches"]["r2"]["status"] == "complete"
+    assert set(man["failed_reaches"]) == {"empty", "split"}
