@@ -38,7 +38,9 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     profile["flags"] = profile["flags"].fillna("") if len(profile) else profile["flags"]
     crs = inputs.dem.crs.to_wkt()
     result.paths["profile"] = outputs.write_profile_csv(out / "profile.csv", profile)
-    result.paths["sections"] = outputs.write_sections_gpkg(out / "sections.gpkg", _sections(cfg, order, profile, crs))
+    sections = _sections(cfg, order, profile, crs)
+    result.paths["sections"] = outputs.write_sections_gpkg(out / "sections.gpkg", sections)
+    man.data["sections_crossing_other_reaches"] = cross_reach_crossings(sections)
     if "extent" in cfg.mapping.outputs:
         result.paths["extent"] = outputs.write_extent_gpkg(out / "inundation.gpkg", _extents(cfg, done, crs))
     result.paths.update(_mosaics(cfg, done))
@@ -50,6 +52,23 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     result.profile = profile
     result.reaches = {rid: man.data["reaches"].get(rid, {"status": "failed", "error": "not computed"})
                       for rid in order}
+
+
+def cross_reach_crossings(sections: gpd.GeoDataFrame) -> list[str]:
+    """Pairs of section lines of different reaches that cross (e.g. near a confluence), as text.
+
+    Sections are repaired within a reach and kept off other reaches' centrelines when cut; two
+    reaches' floodplain sections can still cross. They are reported here for review.
+    """
+    if len(sections) < 2:
+        return []
+    geoms = np.asarray(sections.geometry.values)
+    left, right = shapely.STRtree(geoms).query(geoms, predicate="intersects")
+    rid = sections["reach_id"].to_numpy()
+    sid = sections["section_id"].to_numpy()
+    keep = (left < right) & (rid[left] != rid[right])
+    return [f"reach {rid[a]} section {sid[a]} crosses reach {rid[b]} section {sid[b]}"
+            for a, b in zip(left[keep], right[keep])]
 
 
 def _mosaics(cfg: Config, done: dict[str, list[str]]) -> dict:

@@ -49,6 +49,7 @@ class RunResult:
     paths: dict[str, Path] = field(default_factory=dict)
     elapsed_s: float = 0.0
     reused_units: int = 0
+    crossings: list = field(default_factory=list)             # section pairs of different reaches that cross
 
     @property
     def failed(self) -> list[str]:
@@ -229,6 +230,9 @@ def run(config, workers: int = 1, scheduler: str | None = None, resume: bool = F
         for p in plans:
             p.result.elapsed_s = time.perf_counter() - t0
             assemble.finish(p.cfg, p.inputs, p.manifest, p.result)
+            p.result.crossings = list(p.manifest.data.get("sections_crossing_other_reaches", []))
+            for line in p.result.crossings:
+                log.warning("%s; check the sections near the confluence", line)
             log.info("run %s finished in %.1f s: %d reach(es) failed", p.cfg.run.name, p.result.elapsed_s,
                      len(p.result.failed))
     finally:

@@ -64,6 +64,10 @@ def main(argv: list[str] | None = None) -> int:
             print(f"{result.config.run.name}: reach {rid}: " + ("ok" if r.get("status") == "complete"
                                                                  else f"FAILED: {r.get('error')}"))
         failed += len(result.failed)
+        crossing = len(result.crossings)
+        if crossing:
+            print(f"{result.config.run.name}: {crossing} pair(s) of sections of different reaches cross "
+                  "(listed in manifest.json and run.log); review them near confluences")
         print(f"outputs in {result.output_dir} ({result.elapsed_s:.1f} s"
               + (f", {result.reused_units} unit(s) reused" if result.reused_units else "") + ")")
     print(f"CAUTION: {CAUTION}")

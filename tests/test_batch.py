@@ -155,3 +155,21 @@ def test_reach_with_broken_geometry_fails_alone(tmp_path, capsys):
     man = json.loads((v.dem.parent / "out_g" / "manifest.json").read_text())
     assert man["reaches"]["r1"]["status"] == man["reaches"]["r2"]["status"] == "complete"
     assert set(man["failed_reaches"]) == {"empty", "split"}
+
+
+def test_sections_of_different_reaches_that_cross_are_reported(tmp_path):
+    """Two reaches whose centrelines cross at right angles: their sections must cross (shapely)."""
+    from shapely.geometry import LineString
+    v = multi_valley(tmp_path, n_reaches=2, length=400.0)
+    gdf = gpd.read_file(v.centrelines)
+    (x0, y0), (x1, _) = gdf.geometry.iloc[0].coords[0], gdf.geometry.iloc[0].coords[-1]
+    gdf.loc[1, "geometry"] = LineString([(x0 + 200.0, y0 + 45.0), (x0 + 200.0, y0 - 45.0)])
+    gdf.to_file(v.centrelines, layer="centrelines", driver="GPKG")
+    text = config_for(v, tmp_path / "c", "out_c").read_text().replace("spacing = 50.0", "spacing = 20.0")
+    cfg = v.dem.parent / "c2.toml"
+    cfg.write_text(text.replace("[reaches]", "[reaches]\ncheck_direction = false"))
+    res = run(cfg)
+    secs = gpd.read_file(res.paths["sections"], layer="sections")
+    a, b = secs[secs.reach_id == "r1"].geometry.values, secs[secs.reach_id == "r2"].geometry.values
+    expected = int(np.sum([[x.intersects(y) for y in b] for x in a]))
+    assert expected > 0 and len(res.crossings) == expected
