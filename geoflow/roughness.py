@@ -49,6 +49,7 @@ def assign_roughness(geom: ReachGeometry, cover, channel_class: str, n_table: Ma
     """
     rid = geom.reach_id
     table = {str(k): _n_value(k, v) for k, v in n_table.items()}
+    geom = split_at_cover_edges(geom, cover)
     mids, owner = _segment_midpoints(geom.sections)
     cls, has_cover, overlaps = _classes_at(cover, mids)
     warnings = list(geom.warnings)
@@ -78,6 +79,44 @@ def assign_roughness(geom: ReachGeometry, cover, channel_class: str, n_table: Ma
     if update_lengths:
         out = dataclasses.replace(out, lengths=overbank_lengths(out))
     return out
+
+
+def split_at_cover_edges(geom: ReachGeometry, cover) -> ReachGeometry:
+    """Add a station wherever a section crosses a land-cover polygon edge.
+
+    The ground there is interpolated linearly between its neighbours, so the ground profile is
+    unchanged; only the segments are split, so every segment lies in one polygon and n changes
+    exactly at the mapped boundary rather than at the nearest sample.
+    """
+    lines = np.array([s.line for s in geom.sections], dtype=object)
+    if lines.size == 0:
+        return geom
+    li, pi = cover.tree.query(lines, predicate="intersects")
+    if li.size == 0:
+        return geom
+    edges = shapely.intersection(lines[li], shapely.boundary(np.asarray(cover.geometries)[pi]))
+    coords, which = shapely.get_coordinates(edges, return_index=True)
+    if coords.size == 0:
+        return geom
+    owner = li[which]
+    st = shapely.line_locate_point(lines[owner], shapely.points(coords))
+    new = []
+    for k, sec in enumerate(geom.sections):
+        add = st[owner == k]
+        if add.size == 0:
+            new.append(sec)
+            continue
+        tol = 1e-3 * float(np.min(np.diff(sec.station))) if sec.station.size > 1 else 1e-6
+        add = add[(add > sec.station[0] + tol) & (add < sec.station[-1] - tol)]
+        add = add[np.min(np.abs(add[:, None] - sec.station[None, :]), axis=1) > tol] if add.size else add
+        if add.size == 0:
+            new.append(sec)
+            continue
+        add = np.sort(add)
+        add = add[np.concatenate(([True], np.diff(add) > tol))]      # shared edges give one point twice
+        station = np.union1d(sec.station, add)
+        new.append(dataclasses.replace(sec, station=station, elevation=np.interp(station, sec.station, sec.elevation)))
+    return dataclasses.replace(geom, sections=tuple(new))
 
 
 def _n_value(name, value) -> float:

@@ -40,7 +40,7 @@ _MIN_WIDTH_FRACTION = 0.1    # refuse repairs that leave less than this fraction
 def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, width: float,
                  sample_step: float | None = None, smoothing: float | None = None,
                  repair: bool = True, others=None, rise: float | None = None,
-                 rise_margin: float | None = None) -> ReachGeometry:
+                 rise_margin: float | None = None, follow_grid: bool = True) -> ReachGeometry:
     """Cut cross-sections every ``spacing`` m along ``centreline`` and sample the ground.
 
     Sections sit at chainage 0, spacing, 2·spacing, ... and at the downstream end L (if the
@@ -80,6 +80,9 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
     stations = [_stations_about_centre(hl, hr, step) for hl, hr in half]
     left_end = centre + half[:, :1] * left_normal
     right_end = centre - half[:, 1:] * left_normal
+    if follow_grid and getattr(dem, "transform", None) is not None and step <= dem.cell_size * (1 + 1e-9):
+        stations = [grid_stations(dem.transform, a, b, st, step, centre_station=hl)
+                    for a, b, st, hl in zip(left_end, right_end, stations, half[:, 0])]
     lines = [LineString([a, b]) for a, b in zip(left_end, right_end)]
     sections = build_sections(rid, chain, lines, stations, _sample_profiles(dem, left_end, right_end, stations),
                               flags, warnings)
@@ -107,6 +110,57 @@ def _side_lengths(rid, line, chain, centre, normal, dem, spacing, width, step, r
         flags[j].append("crosses_section")
         warnings.append(f"reach {rid}: section {j} (chainage {chain[j]:.1f} m) crosses section {i} (chainage {chain[i]:.1f} m)")
     return half
+
+
+def grid_stations(transform, start: np.ndarray, end: np.ndarray, stations: np.ndarray, step: float,
+                  centre_station: float | None = None) -> np.ndarray:
+    """Stations where the section crosses a row or column of DEM cell centres.
+
+    Used when ``step`` is the DEM cell size or finer (the default): with ``step`` equal to the
+    cell size the crossings replace the regular stations (they are never more than a cell
+    apart), keeping both ends and the centreline station; with a finer ``step`` they are added
+    to the regular stations.
+
+    Bilinear interpolation makes the DEM surface a patchwork whose creases run along the lines
+    joining cell centres; along a straight section the ground is smooth between two crossings
+    of those lines and kinks at them. Sampling only every ``step`` cuts across those kinks (at
+    a channel toe this loses area: 0.25 m2 of 28 m2 in a 10 m trapezoid on a 1 m DEM); adding
+    the crossings follows the DEM's own surface. Stations closer than 1 % of ``step`` to an
+    existing one are not added.
+    """
+    total = float(stations[-1])
+    cell = max(abs(transform.a), abs(transform.e))
+    if step >= cell * (1 - 1e-9):
+        keep = [0.0, total] + ([float(centre_station)] if centre_station is not None else [])
+        stations = np.unique(np.array(keep))
+    extra = []
+    for axis, origin, size in ((0, transform.c, transform.a), (1, transform.f, transform.e)):
+        a, b = float(start[axis]), float(end[axis])
+        if abs(b - a) < 1e-12:
+            continue
+        lo, hi = sorted(((a - origin) / size - 0.5, (b - origin) / size - 0.5))
+        idx = np.arange(np.ceil(lo), np.floor(hi) + 1)
+        t = ((origin + (idx + 0.5) * size) - a) / (b - a)
+        extra.append(t * total)
+    if not extra:
+        return stations
+    cand = np.sort(np.concatenate(extra))
+    cand = cand[(cand > 0) & (cand < total)]
+    near = np.min(np.abs(cand[:, None] - stations[None, :]), axis=1) < 0.01 * step if cand.size else cand
+    merged = np.union1d(stations, cand[~near])
+    keep = np.concatenate(([True], np.diff(merged) > 0.01 * step))   # drop near-duplicate crossings
+    keep[-1] = True
+    return _fill_gaps(merged[keep], step)
+
+
+def _fill_gaps(stations: np.ndarray, step: float) -> np.ndarray:
+    """Evenly spaced extra stations wherever two neighbours are more than ``step`` apart."""
+    gaps = np.diff(stations)
+    wide = np.flatnonzero(gaps > step * (1 + 1e-9))
+    if wide.size == 0:
+        return stations
+    extra = [np.linspace(stations[i], stations[i + 1], int(np.ceil(gaps[i] / step)) + 1)[1:-1] for i in wide]
+    return np.union1d(stations, np.concatenate(extra))
 
 
 def _stations_about_centre(left: float, right: float, step: float) -> np.ndarray:
