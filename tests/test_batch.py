@@ -141,7 +141,7 @@ def test_reach_with_broken_geometry_fails_alone(tmp_path, capsys):
     v = multi_valley(tmp_path, n_reaches=2, length=400.0)
     gdf = gpd.read_file(v.centrelines)
     line = gdf.geometry.iloc[0]
-    (x0, y0), (x1, y1) = line.coords[0], line.coords[-1]
+    x0, y0 = line.coords[0]
     extra = gpd.GeoDataFrame({"reach_id": ["empty", "split"]},
                              geometry=[None, MultiLineString([[(x0, y0 + 5), (x0 + 100, y0 + 5)],
                                                               [(x0 + 200, y0 + 5), (x0 + 300, y0 + 5)]])],
@@ -162,7 +162,7 @@ def test_sections_of_different_reaches_that_cross_are_reported(tmp_path):
     from shapely.geometry import LineString
     v = multi_valley(tmp_path, n_reaches=2, length=400.0)
     gdf = gpd.read_file(v.centrelines)
-    (x0, y0), (x1, _) = gdf.geometry.iloc[0].coords[0], gdf.geometry.iloc[0].coords[-1]
+    x0, y0 = gdf.geometry.iloc[0].coords[0]
     gdf.loc[1, "geometry"] = LineString([(x0 + 200.0, y0 + 45.0), (x0 + 200.0, y0 - 45.0)])
     gdf.to_file(v.centrelines, layer="centrelines", driver="GPKG")
     text = config_for(v, tmp_path / "c", "out_c").read_text().replace("spacing = 50.0", "spacing = 20.0")

@@ -13,8 +13,6 @@ References:
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
-import pytest
 import rasterio
 import shapely
 from rasterio.transform import from_origin
@@ -24,7 +22,7 @@ from shapely.geometry import LineString, box
 
 import geopandas as gpd
 from geoflow.batch import run
-from valleys import CRS, make_valley, write_config
+from valleys import CRS, make_valley, plain_config, write_config
 
 G = 9.80665
 
@@ -109,32 +107,8 @@ def subdivided(ground, top, depth, n_ch, n_fp):
 def test_compound_channel_depth_and_alpha_vs_subdivided_conveyance(tmp_path):
     n_ch, n_fp, q = 0.03, 0.06, 120.0
     ground, top, zdown, x0, length, slope, half = compound_valley(tmp_path)
-    path = tmp_path / "geoflow.toml"
-    path.write_text(f"""
-[run]
-name = "compound"
-output_dir = "out"
-[terrain]
-dem = "dem.tif"
-[reaches]
-centrelines = "centrelines.gpkg"
-[sections]
-spacing = 50.0
-width = {2 * half - 4.0}
-[roughness]
-landcover = "landcover.gpkg"
-class_field = "cover"
-channel_class = "channel"
-[roughness.classes.channel]
-n = {n_ch}
-[roughness.classes.floodplain]
-n = {n_fp}
-[[events]]
-name = "flood"
-discharge = {q}
-[boundary]
-downstream = {{ type = "normal_depth", slope = {slope} }}
-""")
+    path = plain_config(tmp_path, "compound", width=2 * half - 4.0, spacing=50.0,
+                        classes={"channel": n_ch, "floodplain": n_fp}, event="flood", discharge=q, slope=slope)
     res = run(path)
     assert not res.failed
     f = lambda d: subdivided(ground, top, d, n_ch, n_fp)[:, 2].sum() * np.sqrt(slope) - q

@@ -18,7 +18,7 @@ from scipy.spatial import cKDTree
 from shapely.geometry import LineString, box
 
 from geoflow.batch import run
-from valleys import CRS, Valley
+from valleys import CRS, Valley, plain_config
 
 B, Z, H, S, N, Q = 10.0, 2.0, 4.0, 0.001, 0.03, 25.0
 
@@ -59,31 +59,8 @@ def carve(folder, length=1500.0, wavelength=500.0, omega=1.0, margin=90.0):
 
 
 def config(folder, width, spacing=20.0):
-    path = folder / "geoflow.toml"
-    path.write_text(f"""
-[run]
-name = "meander"
-output_dir = "out"
-[terrain]
-dem = "dem.tif"
-[reaches]
-centrelines = "centrelines.gpkg"
-[sections]
-spacing = {spacing}
-width = {width}
-[roughness]
-landcover = "landcover.gpkg"
-class_field = "cover"
-channel_class = "channel"
-[roughness.classes.channel]
-n = {N}
-[[events]]
-name = "inbank"
-discharge = {Q}
-[boundary]
-downstream = {{ type = "normal_depth", slope = {S} }}
-""")
-    return path
+    return plain_config(folder, "meander", width=width, spacing=spacing, classes={"channel": N}, event="inbank",
+                        discharge=Q, slope=S)
 
 
 @pytest.mark.parametrize("omega,width", [(0.6, 60.0), (1.2, 90.0)])

@@ -112,18 +112,25 @@ def test_no_channel_cover_takes_lowest_point():
     assert len([w for w in out.warnings if "no 'water' cover" in w]) == len(out.sections)
 
 
+def arc_centreline(r: float) -> shapely.LineString:
+    """Counter-clockwise arc of radius ``r`` about the origin, 1 radian long (analytic bend)."""
+    th = np.linspace(0.0, 1.0, 3000)
+    return shapely.LineString(np.column_stack((r * np.cos(th), r * np.sin(th))))
+
+
+def annulus(r0: float, r1: float) -> shapely.Polygon:
+    """Annular sector between radii ``r0`` and ``r1`` covering the arc of :func:`arc_centreline`."""
+    t = np.linspace(-0.2, 1.2, 800)
+    return shapely.Polygon(np.vstack((np.column_stack((r0 * np.cos(t), r0 * np.sin(t))),
+                                      np.column_stack((r1 * np.cos(t[::-1]), r1 * np.sin(t[::-1]))))))
+
+
 def test_overbank_lengths_on_a_bend_follow_the_arc():
     # Analytic geometry: counter-clockwise arc of radius R, sections radial, so the left (inner)
     # overbank mid-point lies on radius R - 30 and consecutive ones are a chord
     # 2 (R - 30) sin(dtheta / 2) apart, dtheta = spacing / R; right (outer) on R + 30.
     r, spacing = 300.0, 50.0
-    th = np.linspace(0.0, 1.0, 3000)
-    line = shapely.LineString(np.column_stack((r * np.cos(th), r * np.sin(th))))
-
-    def annulus(r0, r1):
-        t = np.linspace(-0.2, 1.2, 800)
-        return shapely.Polygon(np.vstack((np.column_stack((r0 * np.cos(t), r0 * np.sin(t))),
-                                          np.column_stack((r1 * np.cos(t[::-1]), r1 * np.sin(t[::-1]))))))
+    line = arc_centreline(r)
 
     geom = cut_sections("bend", line, SurfaceDem(), spacing=spacing, width=100, sample_step=1)
     lc = cover((annulus(r - 60, r - 10), "grass"), (annulus(r - 10, r + 10), "water"), (annulus(r + 10, r + 60), "forest"))
@@ -283,13 +290,7 @@ def test_overbank_paths_through_weighted_centroids_on_a_bend():
     from geoflow.sections import overbank_lengths
 
     r, spacing = 300.0, 50.0
-    th = np.linspace(0.0, 1.0, 3000)
-    line = shapely.LineString(np.column_stack((r * np.cos(th), r * np.sin(th))))
-
-    def annulus(r0, r1):
-        t = np.linspace(-0.2, 1.2, 800)
-        return shapely.Polygon(np.vstack((np.column_stack((r0 * np.cos(t), r0 * np.sin(t))),
-                                          np.column_stack((r1 * np.cos(t[::-1]), r1 * np.sin(t[::-1]))))))
+    line = arc_centreline(r)
 
     dem = SurfaceDem(lambda x, y: 0.1 * np.abs(np.hypot(x, y) - r))
     geom = cut_sections("bend", line, dem, spacing=spacing, width=100, sample_step=0.5)

@@ -134,3 +134,33 @@ def write_config(folder: Path, valley: Valley, discharge: float, n: float, extra
     path = Path(folder) / "geoflow.toml"
     path.write_text(text)
     return path
+
+
+def plain_config(folder: Path, name: str, width: float, spacing: float, classes: dict, event: str,
+                 discharge: float, slope: float) -> Path:
+    """geoflow.toml for dem.tif / centrelines.gpkg / landcover.gpkg (field "cover", channel class
+    "channel") in ``folder``: one event and a normal-depth downstream boundary."""
+    cls = "".join(f"[roughness.classes.{k}]\nn = {v}\n" for k, v in classes.items())
+    path = Path(folder) / "geoflow.toml"
+    path.write_text(f"""
+[run]
+name = "{name}"
+output_dir = "out"
+[terrain]
+dem = "dem.tif"
+[reaches]
+centrelines = "centrelines.gpkg"
+[sections]
+spacing = {spacing}
+width = {width}
+[roughness]
+landcover = "landcover.gpkg"
+class_field = "cover"
+channel_class = "channel"
+{cls}[[events]]
+name = "{event}"
+discharge = {discharge}
+[boundary]
+downstream = {{ type = "normal_depth", slope = {slope} }}
+""")
+    return path
