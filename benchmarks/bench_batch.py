@@ -15,8 +15,9 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent / "tests"))
 
-from geoflow.batch import run  # noqa: E402
 from valleys import make_valley, write_config  # noqa: E402
+
+from geoflow.batch import run  # noqa: E402
 
 
 def main() -> None:

@@ -43,8 +43,8 @@ from rasterio.windows import Window
 from shapely.geometry import LineString
 
 from geoflow import outputs
-from geoflow.mapblocks import Surface, block_bounds
-from geoflow.mapping import GDAL_CACHE_MB, PAD_CELLS, write_reach_maps
+from geoflow.mapping.blocks import Surface, block_bounds
+from geoflow.mapping.engine import GDAL_CACHE_MB, PAD_CELLS, write_reach_maps
 from geoflow.records import ReachGeometry, Section
 from geoflow.terrain import open_dem
 

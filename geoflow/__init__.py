@@ -3,16 +3,15 @@
 Results are screening-level 1D steady estimates. They must be reviewed by a qualified
 engineer; local codes, regulators and licensed practice govern their use.
 """
-__version__ = "0.1.0"
+from .constants import CAUTION
 
-CAUTION = ("Screening-level 1D steady-flow estimates. Results must be reviewed by a qualified engineer; "
-           "local codes, regulators and licensed practice govern their use.")
+__version__ = "0.2.0"
 
 __all__ = ["run", "check", "load_config", "CAUTION", "__version__"]
 
 
 def __getattr__(name: str):
-    # Lazy: importing geoflow.hydraulics must not pull in the GIS stack.
+    # Lazy: importing geoflow (or geoflow.hydraulics) must not pull in the GIS stack.
     if name in ("run", "check"):
         from . import batch
         return getattr(batch, name)

@@ -5,8 +5,8 @@ import argparse
 import sys
 
 from . import __version__
-from . import CAUTION
 from .batch import check, run
+from .constants import CAUTION
 from .errors import GeoflowError
 
 DESCRIPTION = (

@@ -6,14 +6,14 @@ import pytest
 import rasterio
 import shapely
 from rasterio.transform import from_origin
+from valleys import make_valley
 
-from geoflow.banks import detect_banks
 from geoflow.errors import GeometryError
 from geoflow.layers import LandCover
 from geoflow.roughness import assign_roughness
 from geoflow.sections import cut_sections
+from geoflow.sections.banks import detect_banks
 from geoflow.terrain import open_dem
-from valleys import make_valley
 
 
 def test_hand_profile():

@@ -20,9 +20,9 @@ import pandas as pd
 import pytest
 import rasterio
 from shapely.affinity import translate
+from valleys import make_valley, write_config
 
 from geoflow.batch import run
-from valleys import make_valley, write_config
 
 
 def multi_valley(tmp_path, n_reaches=4, length=800.0, broken=False):
@@ -137,6 +137,7 @@ def test_killed_run_resumes_to_identical_outputs(tmp_path):
 def test_reach_with_broken_geometry_fails_alone(tmp_path, capsys):
     """A null geometry and a multi-part line that does not join: those two reaches fail, r1/r2 run."""
     from shapely.geometry import MultiLineString
+
     from geoflow.cli import main
     v = multi_valley(tmp_path, n_reaches=2, length=400.0)
     gdf = gpd.read_file(v.centrelines)

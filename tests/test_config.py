@@ -8,11 +8,11 @@ import sys
 import geopandas as gpd
 import pytest
 from shapely.affinity import translate
+from valleys import make_valley, write_config
 
 from geoflow.cli import main
 from geoflow.config import load_config
 from geoflow.errors import ConfigError
-from valleys import make_valley, write_config
 
 
 @pytest.fixture()

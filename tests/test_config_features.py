@@ -2,17 +2,17 @@
 
 Reference throughout: uniform flow, Manning normal depth of the trapezoid (Chow 1959, ch. 6;
 scipy brentq in tests/valleys.py). Typical n values: Chow (1959) Table 5-6 as given in
-geoflow.ntables (clean straight stream: min 0.025, normal 0.030, max 0.033).
+geoflow.roughness.tables (clean straight stream: min 0.025, normal 0.030, max 0.033).
 """
 import geopandas as gpd
 import numpy as np
 import pytest
 from shapely.geometry import LineString
+from valleys import make_valley, write_config
 
 from geoflow.batch import check, run
 from geoflow.config import load_config
 from geoflow.errors import ConfigError
-from valleys import make_valley, write_config
 
 
 def depth_ok(res, v, yn, tol=0.02):

@@ -15,10 +15,10 @@ import pandas as pd
 import pytest
 import rasterio
 from pyproj import CRS
+from valleys import make_valley, write_config
 
 import geoflow
 from geoflow.cli import main
-from valleys import make_valley, write_config
 
 CONTRACT_COLUMNS = ["reach_id", "event", "section_id", "chainage_m", "discharge_m3s", "bed_m", "wse_m",
                     "energy_m", "critical_wse_m", "velocity_ms", "froude", "alpha", "area_m2", "top_width_m",

@@ -12,6 +12,7 @@ References:
 """
 from __future__ import annotations
 
+import geopandas as gpd
 import numpy as np
 import rasterio
 import shapely
@@ -19,10 +20,9 @@ from rasterio.transform import from_origin
 from scipy.integrate import solve_ivp
 from scipy.optimize import brentq
 from shapely.geometry import LineString, box
-
-import geopandas as gpd
-from geoflow.batch import run
 from valleys import CRS, make_valley, plain_config, write_config
+
+from geoflow.batch import run
 
 G = 9.80665
 

@@ -7,11 +7,10 @@ its profile must be an M1 backwater curve falling towards r2's own normal depth 
 (Chow 1959, ch. 9: depth above normal and above critical on a mild slope).
 """
 import numpy as np
-import pytest
+from valleys import make_valley, write_config
 
 from geoflow.batch import run
 from geoflow.cli import main
-from valleys import make_valley, write_config
 
 
 def junction_config(tmp_path, target="r1"):

@@ -18,7 +18,9 @@ from rasterio.crs import CRS
 from shapely.geometry import LineString
 
 from geoflow.errors import ConfigError, GeometryError
-from geoflow.mapping import ReachMap, map_reach, point_segment_distance, wse_surface
+from geoflow.mapping import ReachMap, map_reach
+from geoflow.mapping.blocks import point_segment_distance
+from geoflow.mapping.engine import wse_surface
 from geoflow.records import ReachGeometry, Section
 from geoflow.terrain import open_dem
 

@@ -1,4 +1,4 @@
-"""Block-wise mapping (geoflow.mapping.write_reach_maps / geoflow.mapblocks) on an analytic DEM.
+"""Block-wise mapping (geoflow.mapping.write_reach_maps / geoflow.mapping.blocks) on an analytic DEM.
 
 DEM (1 m cells, 192 rows x 256 cols, row/column indices from the top-left corner), built
 so the wet set is known by construction (no labelling code involved in the reference):
@@ -34,8 +34,8 @@ from rasterio.enums import Compression
 from scipy import ndimage
 from shapely.geometry import LineString
 
-from geoflow import mapjoin
 from geoflow.errors import ConfigError, GeometryError
+from geoflow.mapping import join as mapjoin
 from geoflow.mapping import map_reach, write_reach_maps
 from geoflow.records import ReachGeometry, Section
 from geoflow.terrain import Dem, open_dem

@@ -16,9 +16,9 @@ import shapely
 from rasterio.transform import from_origin
 from scipy.spatial import cKDTree
 from shapely.geometry import LineString, box
+from valleys import CRS, Valley, plain_config
 
 from geoflow.batch import run
-from valleys import CRS, Valley, plain_config
 
 B, Z, H, S, N, Q = 10.0, 2.0, 4.0, 0.001, 0.03, 25.0
 

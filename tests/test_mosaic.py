@@ -1,4 +1,4 @@
-"""Tests for geoflow.mosaic.mosaic_max; reference: numpy.fmax on the union grid, and
+"""Tests for geoflow.mapping.mosaic_max; reference: numpy.fmax on the union grid, and
 rasterio.merge.merge(method="max") as a second reference library; files read with rasterio."""
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ from rasterio.crs import CRS
 from rasterio.merge import merge
 
 from geoflow.errors import InputDataError
-from geoflow.mosaic import mosaic_max
+from geoflow.mapping import mosaic_max
 from geoflow.outputs import write_raster
 
 CRS_UTM = CRS.from_epsg(32633)

@@ -19,8 +19,15 @@ from shapely.geometry import LineString, Polygon
 
 from geoflow import outputs
 from geoflow.errors import OutputError
-from geoflow.outputs import (PROFILE_COLUMNS, atomic_path, write_extent_gpkg, write_manifest,
-                             write_profile_csv, write_raster, write_sections_gpkg)
+from geoflow.outputs import (
+    PROFILE_COLUMNS,
+    atomic_path,
+    write_extent_gpkg,
+    write_manifest,
+    write_profile_csv,
+    write_raster,
+    write_sections_gpkg,
+)
 
 CRS_UTM = CRS.from_epsg(32633)
 TRANSFORM = Affine(2.0, 0.0, 500000.0, 0.0, -2.0, 4000000.0)

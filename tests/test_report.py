@@ -12,9 +12,10 @@ import pandas as pd
 import pytest
 from shapely.geometry import LineString
 
+from geoflow.constants import CAUTION
 from geoflow.outputs import PROFILE_COLUMNS
 from geoflow.records import CHANNEL, LEFT_OVERBANK, RIGHT_OVERBANK, ReachGeometry, Section
-from geoflow.report import CAUTION, event_summary, write_report
+from geoflow.report import event_summary, write_report
 
 EVENTS = ["q10", "q100"]
 

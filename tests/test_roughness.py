@@ -9,9 +9,9 @@ import shapely
 
 from geoflow.errors import RoughnessError
 from geoflow.layers import LandCover
-from geoflow.ntables import CHOW_1959, cowan_n, reference_n
 from geoflow.records import CHANNEL, LEFT_OVERBANK, RIGHT_OVERBANK
 from geoflow.roughness import assign_roughness, landcover_classes
+from geoflow.roughness.tables import CHOW_1959, cowan_n, reference_entry
 from geoflow.sections import cut_sections
 
 N_TABLE = {"grass": 0.035, "water": 0.030, "forest": 0.100}
@@ -168,12 +168,12 @@ def test_cowan_composite_n(parts, documented, computed):
 
 def test_chow_table_rows():
     # Chow (1959) Table 5-6 as given in REFERENCES.md 3.6 (source found for these two rows).
-    row = reference_n("Pasture_Short_Grass")
+    row = reference_entry("Pasture_Short_Grass")
     assert (row.minimum, row.normal, row.maximum) == (0.025, 0.030, 0.035) and "Chow (1959)" in row.source
-    assert reference_n("dense_brush_summer").normal == 0.100
+    assert reference_entry("dense_brush_summer").normal == 0.100
     assert all(r.minimum <= r.normal <= r.maximum for r in CHOW_1959)
     with pytest.raises(RoughnessError, match="known cover types"):
-        reference_n("asphalt")
+        reference_entry("asphalt")
 
 
 def test_files_to_roughness_end_to_end(tmp_path):
@@ -256,7 +256,7 @@ def test_read_class_table(tmp_path):
 
 
 def test_reference_entry_suggests_the_closest_key():
-    from geoflow.ntables import reference_entry
+    from geoflow.roughness.tables import reference_entry
 
     assert reference_entry(" Dense_Willows ").normal == 0.150  # Chow (1959) Table 5-6, REFERENCES.md 3.6
     with pytest.raises(RoughnessError) as err:

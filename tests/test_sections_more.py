@@ -6,11 +6,11 @@ import pytest
 import rasterio
 import shapely
 from rasterio.transform import from_origin
+from valleys import make_valley
 
 from geoflow.errors import GeometryError
 from geoflow.sections import cut_sections, orient_centreline, sections_from_lines
 from geoflow.terrain import open_dem
-from valleys import make_valley
 
 
 def write_surface(tmp_path, z_of, nx=400, ny=400, cell=1.0, name="surface.tif"):

@@ -7,11 +7,11 @@ table's extreme n values (Manning's Q is monotonic in 1/n).
 """
 import numpy as np
 import pytest
+from valleys import make_valley, write_config
 
 from geoflow.batch import run
 from geoflow.config import load_config
 from geoflow.errors import ConfigError
-from valleys import make_valley, write_config
 
 
 def depths(res, v):

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import numpy as np
 
+
 def bracketed_root(fun, a, b, fa, fb, *, xtol=1e-9, ftol=1e-7, maxiter=60):
     """Illinois (modified regula falsi) on brackets [a, b] with fa, fb of opposite sign
     (Dowell & Jarratt 1971, BIT 11:168-174, from memory).

@@ -33,7 +33,7 @@ from geoflow.hydraulics.boundaries import Boundary, normal_wse  # noqa: F401  (r
 from geoflow.hydraulics.critical import critical_many
 from geoflow.hydraulics.geometry import fast_properties, specific_force
 from geoflow.hydraulics.profile import Profile, assemble, section_props
-from geoflow.hydraulics.step import CRITICAL, NO_CONVERGENCE, OK, section_state, solve_step
+from geoflow.hydraulics.step import CRITICAL, OK, section_state, solve_step
 
 REGIMES = ("subcritical", "supercritical", "mixed")
 FRICTION_RULES = ("average_conveyance", "arithmetic", "geometric", "harmonic")

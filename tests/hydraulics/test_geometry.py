@@ -2,7 +2,8 @@
 import numpy as np
 import pytest
 import shapely
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from geoflow.errors import GeometryError
 from geoflow.hydraulics.geometry import build_table, properties, specific_force

@@ -4,7 +4,8 @@ polygon clipping directly, on random ground profiles with flat, vertical and ste
 import numpy as np
 import pytest
 import shapely
-from hypothesis import given, note, settings, strategies as st
+from hypothesis import given, note, settings
+from hypothesis import strategies as st
 
 from geoflow.hydraulics.critical import critical_many, critical_wse
 from geoflow.hydraulics.geometry import build_table, fast_properties, flow_state, properties

@@ -2,7 +2,8 @@
 alpha >= 1 (Cauchy-Schwarz, REFERENCES 3.1), and every section either meets the 1 mm energy
 balance or carries a flag saying what was assumed (definition of the solver contract)."""
 import numpy as np
-from hypothesis import HealthCheck, given, settings, strategies as st
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from geoflow.hydraulics.geometry import build_table
 from geoflow.hydraulics.solver import Boundary, SolverOptions, solve_events

@@ -22,10 +22,9 @@ import numpy as np
 import shapely
 from shapely.geometry import LineString
 
-from .errors import GeometryError
-from .records import ReachGeometry
-from .sections import _check_inside, _check_positive, build_sections
-from .sidelimits import sample_many
+from ..errors import GeometryError
+from ..records import ReachGeometry
+from .common import build_sections, check_inside, check_positive, sample_many
 
 
 def sections_from_lines(reach_id: str, centreline: LineString, lines, dem, sample_step: float | None = None,
@@ -34,9 +33,9 @@ def sections_from_lines(reach_id: str, centreline: LineString, lines, dem, sampl
     rid = str(reach_id)
     where = f"{source}" if source is not None else "section lines"
     step = float(sample_step) if sample_step is not None else float(dem.cell_size)
-    _check_positive(rid, sample_step=step)
+    check_positive(rid, sample_step=step)
     line = shapely.force_2d(centreline)
-    _check_inside(rid, line, dem.bounds)
+    check_inside(rid, line, dem.bounds)
     geoms = shapely.force_2d(np.asarray(list(lines), dtype=object))
     if geoms.size < 2:
         raise GeometryError(f"{where}: reach {rid} has {geoms.size} section line(s); draw at least 2 across its centreline")

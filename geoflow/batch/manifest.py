@@ -13,8 +13,9 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from . import CAUTION, __version__, outputs
-from .config import Config
+from .. import __version__, outputs
+from ..config import Config
+from ..constants import CAUTION
 
 MANIFEST_NAME = "manifest.json"
 PARTS_DIR = "parts"            # per reach x event intermediate tables, kept for --resume

@@ -3,7 +3,7 @@
 Every problem found is collected with its TOML path (e.g. ``[sections] spacing``) and reported
 together in one ConfigError; unknown keys are rejected with a did-you-mean suggestion.
 Paths in the file are resolved relative to the config file's folder. The dataclasses live in
-``configmodel`` and the per-table readers in ``configread``; both are re-exported here.
+``config.model`` and the per-table readers in ``config.read``; both are re-exported here.
 """
 from __future__ import annotations
 
@@ -11,13 +11,39 @@ import hashlib
 import tomllib
 from pathlib import Path
 
-from .configmodel import (BOUNDARY_TYPES, FRICTION_SLOPE_METHODS, MAPPING_OUTPUTS, REGIMES,  # noqa: F401
-                          VERTICAL_UNITS, BoundaryConfig, BoundarySpec, Config, Event, FlowChange,
-                          HydraulicsConfig, MappingConfig, ReachesConfig, RoughnessClass, RoughnessConfig,
-                          RunConfig, SectionsConfig, TerrainConfig)
-from .configread import (_Reader, _read_boundary, _read_events, _read_hydraulics, _read_mapping,
-                         _read_reaches, _read_roughness, _read_run, _read_sections, _read_terrain)
-from .errors import ConfigError
+from ..errors import ConfigError
+from .model import (  # noqa: F401
+    BOUNDARY_TYPES,
+    FRICTION_SLOPE_METHODS,
+    MAPPING_OUTPUTS,
+    REGIMES,
+    VERTICAL_UNITS,
+    BoundaryConfig,
+    BoundarySpec,
+    Config,
+    Event,
+    FlowChange,
+    HydraulicsConfig,
+    MappingConfig,
+    ReachesConfig,
+    RoughnessClass,
+    RoughnessConfig,
+    RunConfig,
+    SectionsConfig,
+    TerrainConfig,
+)
+from .read import (
+    _read_boundary,
+    _read_events,
+    _read_hydraulics,
+    _read_mapping,
+    _read_reaches,
+    _read_roughness,
+    _read_run,
+    _read_sections,
+    _read_terrain,
+    _Reader,
+)
 
 __all__ = ["load_config", "Config", "RunConfig", "TerrainConfig", "ReachesConfig", "SectionsConfig",
            "RoughnessClass", "RoughnessConfig", "FlowChange", "Event", "BoundarySpec", "BoundaryConfig",

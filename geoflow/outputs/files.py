@@ -18,14 +18,9 @@ import rasterio
 import rasterio.shutil
 from rasterio.io import MemoryFile
 
-from .errors import OutputError
-
-PROFILE_COLUMNS = (
-    "reach_id", "event", "section_id", "chainage_m", "discharge_m3s", "bed_m", "wse_m", "energy_m",
-    "critical_wse_m", "velocity_ms", "froude", "alpha", "area_m2", "top_width_m", "friction_slope", "flags",
-)
-SECTION_COLUMNS = ("reach_id", "section_id", "chainage_m", "left_bank_station_m", "right_bank_station_m", "flags")
-EXTENT_COLUMNS = ("reach_id", "event")
+from ..constants import NODATA
+from ..errors import OutputError
+from .tables import EXTENT_COLUMNS, PROFILE_COLUMNS, SECTION_COLUMNS
 
 # printf formats per profile column; other float columns use "%.6g".
 _PROFILE_FORMATS = {
@@ -61,7 +56,7 @@ def atomic_path(path):
         raise
 
 
-def write_raster(path, array, transform, crs, nodata: float = -9999.0, blocksize: int = 256) -> Path:
+def write_raster(path, array, transform, crs, nodata: float = NODATA, blocksize: int = 256) -> Path:
     """Write a 2D array as a float32 Cloud-Optimised GeoTIFF (DEFLATE, float predictor, overviews).
 
     NaN becomes ``nodata``. Tiles are ``blocksize`` square (256 or 512). Overviews are built by
@@ -126,7 +121,7 @@ class BlockWriter:
 
 
 @contextlib.contextmanager
-def block_raster_writer(path, width: int, height: int, transform, crs, nodata: float = -9999.0,
+def block_raster_writer(path, width: int, height: int, transform, crs, nodata: float = NODATA,
                         blocksize: int = 256):
     """Write a large float32 raster window by window, then publish it as a COG atomically.
 

@@ -5,13 +5,13 @@ polygon containing its mid-point (shapely 2 ``STRtree.query`` with predicate
 ``"intersects"``, so a mid-point on a shared edge still finds a polygon; where polygons
 overlap the first feature in layer order wins and a warning says so). Its n comes from the
 user's table (class name -> n), e.g. chosen from Chow (1959) *Open-Channel Hydraulics*,
-Table 5-6 (see :mod:`geoflow.ntables`).
+Table 5-6 (see :mod:`geoflow.roughness.tables`).
 
 Parts: the channel is the contiguous run of ``channel_class`` segments nearest to the
 centre of the section (where the centreline crosses it); segments left of it are left
 overbank, right of it right overbank; channel-class segments away from that run (ponds,
 side arms) count as overbank. Without any channel cover the banks are found from the ground
-by break in slope (:func:`geoflow.banks.detect_banks`) and the section is flagged
+by break in slope (:func:`geoflow.sections.banks.detect_banks`) and the section is flagged
 ``no_channel_cover``. The centre of a section is where the centreline crosses it (so
 sections of uneven sides, adaptive width or drawn by the user, are handled).
 """
@@ -23,11 +23,10 @@ from collections.abc import Mapping
 import numpy as np
 import shapely
 
-from .banks import detect_banks
-from .errors import RoughnessError
-from .ntables import N_RANGE, read_class_table  # noqa: F401  (re-exported)
-from .records import CHANNEL, LEFT_OVERBANK, RIGHT_OVERBANK, ReachGeometry, Section
-from .sections import overbank_lengths
+from ..errors import RoughnessError
+from ..records import CHANNEL, LEFT_OVERBANK, RIGHT_OVERBANK, ReachGeometry, Section
+from ..sections.banks import detect_banks
+from ..sections.lengths import overbank_lengths
 
 GAP_CLASS = ""   # land-cover name given to segments in a gap filled with default_n
 
@@ -45,7 +44,7 @@ def assign_roughness(geom: ReachGeometry, cover, channel_class: str, n_table: Ma
     Segments in no polygon get ``default_n`` (class ``""``, flag ``landcover_gap``) or raise
     :class:`RoughnessError`; so do classes missing from ``n_table`` when no ``default_n``.
     With ``update_lengths`` the overbank lengths are recomputed from the bank stations
-    (:func:`geoflow.sections.overbank_lengths`).
+    (:func:`geoflow.sections.lengths.overbank_lengths`).
     """
     rid = geom.reach_id
     table = {str(k): _n_value(k, v) for k, v in n_table.items()}

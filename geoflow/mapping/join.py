@@ -1,7 +1,7 @@
 """Mapping engine across blocks: label join, patches, totals and outline of one reach.
 
 The output grid (the reach window of the DEM grid, or a coarser grid aligned to it) is cut
-into square blocks (:mod:`geoflow.mapblocks` computes one block). Nothing larger than one
+into square blocks (:mod:`geoflow.mapping.blocks` computes one block). Nothing larger than one
 block is held, except per-label summaries, the label strips along block edges and the
 outline pieces.
 
@@ -42,7 +42,7 @@ from rasterio.windows import Window
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from .mapblocks import BlockData, Grid, block_layers, compute_block
+from .blocks import BlockData, Grid, block_layers, compute_block
 
 SMALL_POCKET = 4096          # pending ids up to this many cells are patched by their cells
 MIN_HOLE_CELLS = 4           # outline holes (dry islands) up to this many cells are filled

@@ -1,4 +1,4 @@
-"""Per-block computations of the mapping engine (the join across blocks is in :mod:`geoflow.mapjoin`).
+"""Per-block computations of the mapping engine (the join across blocks is in :mod:`geoflow.mapping.join`).
 
 A block is a window of the output grid: the reach window of the DEM grid, or a coarser grid
 aligned to it. For one block: read the ground (``dem.read(window)`` only), interpolate the

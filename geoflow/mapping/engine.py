@@ -22,9 +22,9 @@ Method
 3. Depth = WSE - ground where positive and 8-connected (``scipy.ndimage.label``) to the
    channel seed: the wet cells under the rasterised centreline. Wet pockets behind high
    ground that do not touch the channel are dry.
-   Across blocks the labels are joined with a union-find (:mod:`geoflow.mapjoin`).
+   Across blocks the labels are joined with a union-find (:mod:`geoflow.mapping.join`).
 4. Extent: ``rasterio.features.shapes`` on the connected wet components -> shapely
-   polygons merged across block edges, dry holes of at most ``mapjoin.MIN_HOLE_CELLS``
+   polygons merged across block edges, dry holes of at most ``join.MIN_HOLE_CELLS``
    cells filled, rings simplified to half a cell, repaired with ``make_valid``; parts under
    one cell are dropped.
 
@@ -34,7 +34,7 @@ averaged (k x k mean of the valid DEM cells), so the coarse grid stays aligned t
 Other values raise ConfigError naming ``[mapping] cell_size``.
 
 Large reaches: :func:`write_reach_maps` runs the same computation block by block
-(:mod:`geoflow.mapblocks` per block, :mod:`geoflow.mapjoin` across blocks)
+(:mod:`geoflow.mapping.blocks` per block, :mod:`geoflow.mapping.join` across blocks)
 and streams the rasters into Cloud-Optimised GeoTIFFs, so memory is bounded by the block
 size, not by the reach. :func:`map_reach` is the same engine with the whole window as one
 block (or ``block`` cells) kept in memory; both give the same cells.
@@ -60,13 +60,13 @@ from rasterio.windows import Window
 from scipy import ndimage
 from shapely.geometry import shape
 
-from . import outputs
-from .errors import ConfigError, GeometryError, RoughnessError
-from .mapblocks import Grid, Surface, point_segment_distance
-from .mapjoin import outline, run_blocks
+from .. import outputs
+from ..errors import ConfigError, GeometryError, RoughnessError
+from .blocks import Grid, Surface
+from .join import outline, run_blocks
 
 __all__ = ["ReachMap", "MapSummary", "VelocityInputs", "map_reach", "write_reach_maps", "wse_surface",
-           "point_segment_distance", "connected_to_seed", "extent_polygons"]
+           "connected_to_seed", "extent_polygons"]
 
 PAD_CELLS = 3
 MAP_KINDS = ("wse", "depth", "velocity")

@@ -10,11 +10,14 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Mapping
 
+from ..constants import VERTICAL_UNITS as _UNIT_FACTORS
+from ..constants import G
+
 REGIMES = ("subcritical", "supercritical", "mixed")
 BOUNDARY_TYPES = ("normal_depth", "stage", "critical", "rating", "junction")
 FRICTION_SLOPE_METHODS = ("average_conveyance", "arithmetic", "geometric", "harmonic")
 MAPPING_OUTPUTS = ("wse", "depth", "velocity", "extent", "report")
-VERTICAL_UNITS = ("m", "ft", "us_ft")
+VERTICAL_UNITS = tuple(_UNIT_FACTORS)
 SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 
 
@@ -127,7 +130,7 @@ class HydraulicsConfig:
     friction_slope: str = "average_conveyance"
     contraction: float = 0.1
     expansion: float = 0.3
-    gravity: float = 9.80665
+    gravity: float = G
 
 
 @dataclass(frozen=True)

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import InputDataError, RoughnessError
+from ..errors import InputDataError, RoughnessError
 
 _CHOW = "Chow (1959) Open-Channel Hydraulics, Table 5-6"
 
@@ -82,11 +82,6 @@ def reference_entry(key: str) -> ReferenceN:
         extra = f" (did you mean {hint[0]!r}?)" if hint else ""
         raise RoughnessError(f"no reference n for {key!r}{extra}; known cover types: {', '.join(rows)}")
     return rows[k]
-
-
-def reference_n(key: str) -> ReferenceN:
-    """Row of :data:`CHOW_1959` by key (case-insensitive); error lists the keys (= :func:`reference_entry`)."""
-    return reference_entry(key)
 
 
 def cowan_n(n_b, n1=0.0, n2=0.0, n3=0.0, n4=0.0, m=1.0):

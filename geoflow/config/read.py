@@ -10,13 +10,28 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Mapping
 
-from .configmodel import (BOUNDARY_TYPES, FRICTION_SLOPE_METHODS, MAPPING_OUTPUTS, REGIMES, SAFE_NAME,
-                          VERTICAL_UNITS, BoundaryConfig, BoundarySpec, Event, FlowChange, HydraulicsConfig,
-                          MappingConfig, ReachesConfig, RoughnessClass, RoughnessConfig, RunConfig,
-                          SectionsConfig, TerrainConfig)
-from .errors import GeoflowError
-from .ntables import read_class_table, reference_entry
-
+from ..errors import GeoflowError
+from ..roughness.tables import read_class_table, reference_entry
+from .model import (
+    BOUNDARY_TYPES,
+    FRICTION_SLOPE_METHODS,
+    MAPPING_OUTPUTS,
+    REGIMES,
+    SAFE_NAME,
+    VERTICAL_UNITS,
+    BoundaryConfig,
+    BoundarySpec,
+    Event,
+    FlowChange,
+    HydraulicsConfig,
+    MappingConfig,
+    ReachesConfig,
+    RoughnessClass,
+    RoughnessConfig,
+    RunConfig,
+    SectionsConfig,
+    TerrainConfig,
+)
 
 # ----------------------------------------------------------------------------------------------
 # Reading helpers: each records a problem (with its TOML path) instead of raising at once.

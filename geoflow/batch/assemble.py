@@ -9,16 +9,16 @@ import time
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import rasterio
 import shapely
 from shapely.geometry import box
-import pandas as pd
 
-from . import outputs
-from .config import Config
+from .. import outputs
+from ..config import Config
+from ..mapping import mosaic_max
+from ..naming import safe_name
 from .manifest import Manifest, part_paths, unit_key
-from .mosaic import mosaic_max
-from .naming import safe_name
 from .tasks import read_profile_parts
 
 
@@ -34,7 +34,7 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
         prof = read_profile_parts(cfg, rid) if done[rid] else None
         if prof is not None:
             profiles.append(prof[prof["event"].isin(done[rid])])
-    profile = pd.concat(profiles, ignore_index=True) if profiles else pd.DataFrame(columns=outputs.PROFILE_COLUMNS)
+    profile = pd.concat(profiles, ignore_index=True) if profiles else outputs.empty_profile()
     profile["flags"] = profile["flags"].fillna("") if len(profile) else profile["flags"]
     crs = inputs.dem.crs.to_wkt()
     result.paths["profile"] = outputs.write_profile_csv(out / "profile.csv", profile)

@@ -15,10 +15,8 @@ pair, the section crossed farther from its centre, symmetrically about the centr
 98 % of that distance.
 
 Sides. Each section has a left and a right length (equal unless adaptive width or a
-confluence made them differ, see :mod:`geoflow.sidelimits`); each side is sampled evenly
-from the centreline outwards, so the centreline point is always a ground sample.
-Also here: :func:`orient_centreline` (drawn direction checked against the DEM) and
-:func:`sections_from_lines` (user-drawn section lines, :mod:`geoflow.userlines`).
+confluence made them differ, see :mod:`geoflow.sections.sidelimits`); each side is sampled
+evenly from the centreline outwards, so the centreline point is always a ground sample.
 """
 from __future__ import annotations
 
@@ -28,11 +26,11 @@ import numpy as np
 import shapely
 from shapely.geometry import LineString
 
-from .errors import GeometryError
-from .records import ReachGeometry, Section
-from .sidelimits import adaptive_halves, confluence_halves, end_bed_levels, sample_many
+from ..errors import GeometryError
+from ..records import ReachGeometry
+from .common import build_sections, check_inside, check_positive, sample_many
+from .sidelimits import adaptive_halves, confluence_halves
 
-MAX_GAP_SAMPLES = 3          # nodata runs up to this many samples are interpolated
 _SHORTEN_FACTOR = 0.98       # shortened half-width = this x distance from centre to crossing
 _MIN_WIDTH_FRACTION = 0.1    # refuse repairs that leave less than this fraction of the width
 
@@ -64,11 +62,11 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
     """
     rid = str(reach_id)
     step = float(sample_step) if sample_step is not None else float(dem.cell_size)
-    _check_positive(rid, spacing=spacing, width=width, sample_step=step)
+    check_positive(rid, spacing=spacing, width=width, sample_step=step)
     if rise is not None:
-        _check_positive(rid, rise=rise)
+        check_positive(rid, rise=rise)
     line = shapely.force_2d(centreline)
-    _check_inside(rid, line, dem.bounds)
+    check_inside(rid, line, dem.bounds)
     length = float(line.length)
     chain = _chainages(rid, length, float(spacing))
     h = float(smoothing) if smoothing is not None else 0.5 * float(spacing)
@@ -175,54 +173,6 @@ def _stations_about_centre(left: float, right: float, step: float) -> np.ndarray
     return np.concatenate((np.linspace(0.0, left, n_l + 1), left + np.linspace(0.0, right, n_r + 1)[1:]))
 
 
-def build_sections(rid: str, chain, lines, stations, elevations, flags, warnings) -> list[Section]:
-    """Section records from sampled profiles; short nodata runs filled, long ones an error."""
-    sections = []
-    for k in range(len(chain)):
-        z, filled = fill_small_gaps(elevations[k], MAX_GAP_SAMPLES)
-        if z is None:
-            raise GeometryError(
-                f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) has DEM nodata over more than "
-                f"{MAX_GAP_SAMPLES} samples; fill the DEM holes, extend the DEM or reduce [sections] width"
-            )
-        if filled:
-            flags[k].append("ground_gap_filled")
-            warnings.append(f"reach {rid}: section {k} (chainage {chain[k]:.1f} m): {filled} nodata sample(s) interpolated")
-        sections.append(Section(reach_id=rid, section_id=k, chainage=float(chain[k]), line=lines[k],
-                                station=stations[k], elevation=z, flags=tuple(flags[k])))
-    return sections
-
-
-def orient_centreline(reach_id: str, line: LineString, dem) -> tuple[LineString, str | None]:
-    """Check the drawn direction of a centreline against the DEM; reverse it if drawn upstream.
-
-    The bed near each end is the median, over the first (last) 10 % of the line, of the lowest
-    ground on short perpendicular profiles (:func:`geoflow.sidelimits.end_bed_levels`). If the
-    start lies lower than the end by more than max(0.05 m, 1e-4 x length) the line was drawn
-    upstream: the reversed line and a warning are returned. Flat reaches (within the tolerance)
-    and ends with no DEM data are left as drawn. Returns (line, warning or None).
-    """
-    rid = str(reach_id)
-    line2 = shapely.force_2d(line)
-    z_start, z_end = end_bed_levels(line2, dem)
-    tol = max(0.05, 1e-4 * float(line2.length))
-    if not (np.isfinite(z_start) and np.isfinite(z_end)):
-        return line, f"reach {rid}: direction of flow not checked (no DEM data near an end of the centreline)"
-    if z_end - z_start > tol:
-        return shapely.reverse(line), (
-            f"reach {rid}: centreline drawn upstream (bed {z_start:.2f} m at its start, {z_end:.2f} m at its "
-            "end); reversed - draw centrelines in the direction of flow")
-    return line, None
-
-
-def sections_from_lines(reach_id: str, centreline: LineString, lines, dem, sample_step: float | None = None,
-                        source=None) -> ReachGeometry:
-    """Sections from user-drawn section lines; see :func:`geoflow.userlines.sections_from_lines`."""
-    from .userlines import sections_from_lines as _from_lines
-
-    return _from_lines(reach_id, centreline, lines, dem, sample_step=sample_step, source=source)
-
-
 def _check_width_left(rid: str, chain, half: np.ndarray, width: float) -> None:
     total = half.sum(axis=1)
     bad = np.flatnonzero(total < _MIN_WIDTH_FRACTION * width)
@@ -231,44 +181,6 @@ def _check_width_left(rid: str, chain, half: np.ndarray, width: float) -> None:
         raise GeometryError(
             f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) keeps only {total[k]:.1f} m between other "
             "reaches' centrelines; end this reach's centreline before the junction or reduce [sections] width"
-        )
-
-
-def fill_small_gaps(values: np.ndarray, max_gap: int = MAX_GAP_SAMPLES) -> tuple[np.ndarray | None, int]:
-    """Fill NaN runs of at most ``max_gap`` samples by linear interpolation along the profile.
-
-    Runs touching an end take the nearest valid value. Returns (filled copy, number of
-    samples filled), or (None, 0) when a longer run (or no valid sample) exists.
-    """
-    v = np.asarray(values, dtype=np.float64)
-    bad = ~np.isfinite(v)
-    if not bad.any():
-        return v.copy(), 0
-    if bad.all():
-        return None, 0
-    edges = np.diff(np.concatenate(([0], bad.astype(np.int8), [0])))
-    run_len = np.flatnonzero(edges == -1) - np.flatnonzero(edges == 1)
-    if run_len.max() > max_gap:
-        return None, 0
-    idx = np.arange(v.size)
-    out = v.copy()
-    out[bad] = np.interp(idx[bad], idx[~bad], v[~bad])
-    return out, int(bad.sum())
-
-
-def _check_positive(rid: str, **values: float) -> None:
-    for key, value in values.items():
-        if not (value is not None and np.isfinite(value) and value > 0):
-            raise GeometryError(f"reach {rid}: [sections] {key} = {value!r} must be a positive number of metres")
-
-
-def _check_inside(rid: str, line: LineString, bounds) -> None:
-    extent = shapely.box(*bounds)
-    if not shapely.covers(extent, line):
-        outside = shapely.length(shapely.difference(line, extent))
-        raise GeometryError(
-            f"reach {rid}: {outside:.1f} m of the {line.length:.1f} m centreline lies outside the DEM extent "
-            f"{tuple(round(b, 1) for b in bounds)}; use a DEM that covers the reach or clip the centreline"
         )
 
 
@@ -371,41 +283,3 @@ def _lengths(chain, centre, normal, half) -> np.ndarray:
     ))
 
 
-def overbank_lengths(geom: ReachGeometry, weighted: bool = True) -> np.ndarray:
-    """(N-1, 3) lengths using each section's bank stations (``part`` must be set).
-
-    Left (right) overbank length = distance between the centroids of the left (right)
-    overbank ground strips of consecutive sections, a stand-in for the flow path through each
-    overbank's centroid of flow. With ``weighted`` each segment of the strip weighs
-    (segment length) x (highest ground of the strip - segment ground), the depth under a level
-    at the strip's highest ground, as a proxy for where the flow goes; a flat strip (or
-    ``weighted=False``) gives the mid-point of the strip. An empty strip uses its bank point.
-    Channel length = chainage difference along the centreline. (Common practice, no source.)
-    """
-    lines, where = [], []
-    for sec in geom.sections:
-        lb, rb = sec.bank_stations
-        lines.append(sec.line)
-        where.append([_strip_centroid(sec, sec.station <= lb + 1e-9, lb, weighted),
-                      _strip_centroid(sec, sec.station >= rb - 1e-9, rb, weighted)])
-    pts = shapely.line_interpolate_point(np.repeat(np.asarray(lines, dtype=object), 2), np.ravel(where))
-    xy = shapely.get_coordinates(pts).reshape(-1, 2, 2)
-    chain = np.array([s.chainage for s in geom.sections])
-    return np.column_stack((
-        np.hypot(*np.diff(xy[:, 0], axis=0).T),
-        np.diff(chain),
-        np.hypot(*np.diff(xy[:, 1], axis=0).T),
-    ))
-
-
-def _strip_centroid(sec, inside: np.ndarray, bank: float, weighted: bool) -> float:
-    """Station of the (weighted) centroid of the ground points ``inside`` (one overbank strip)."""
-    st, z = sec.station[inside], sec.elevation[inside]
-    if st.size < 2:
-        return float(bank)
-    ds = np.diff(st)
-    mid = 0.5 * (st[:-1] + st[1:])
-    w = ds * ((z.max() - 0.5 * (z[:-1] + z[1:])) if weighted else 1.0)
-    if not np.any(w > 1e-12 * max(ds.sum(), 1.0)):
-        w = ds
-    return float(np.sum(w * mid) / np.sum(w))

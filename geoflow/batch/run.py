@@ -14,25 +14,23 @@
 """
 from __future__ import annotations
 
-import concurrent.futures as cf
 import logging
-import multiprocessing
 import sys
-import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import pandas as pd
-import shapely
-from shapely.geometry import box
 
-from . import CAUTION, assemble, manifest, pipeline
-from .config import Config, load_config
-from .errors import GeometryError, GeoflowError, OutputError
-from .naming import safe_name
-from .records import ReachGeometry
-from .tasks import compute_reach
+from ..config import Config
+from ..config.crosscheck import junction_order
+from ..constants import CAUTION
+from ..errors import OutputError
+from ..naming import safe_name
+from . import assemble, manifest
+from .check import _as_config, precheck_reaches
+from .engines import engine
+from .inputs import Inputs, open_inputs
 
 log = logging.getLogger("geoflow")
 LOG_NAME = "run.log"
@@ -57,72 +55,9 @@ class RunResult:
 
 
 @dataclass
-class CheckResult:
-    config: Config
-    inputs: pipeline.Inputs
-    geometries: dict[str, ReachGeometry]
-    problems: dict[str, str] = field(default_factory=dict)
-
-    def summary_lines(self) -> list[str]:
-        cfg = self.config
-        lines = [f"config {cfg.path}: OK", f"DEM {cfg.terrain.dem} ({self.inputs.dem.crs.to_string()}, "
-                 f"{self.inputs.dem.cell_size:g} m cells)",
-                 f"{len(self.geometries) + len(self.problems)} reach(es), {len(cfg.events)} event(s): "
-                 + ", ".join(e.name for e in cfg.events)]
-        for rid, g in self.geometries.items():
-            flagged = sum(1 for s in g.sections if s.flags)
-            lines.append(f"  reach {rid}: {g.sections[-1].chainage:.0f} m, {len(g.sections)} sections, "
-                         f"{flagged} flagged")
-            lines.extend(f"    warning: {w}" for w in g.warnings)
-        lines.extend(f"  reach {rid}: PROBLEM: {msg}" for rid, msg in self.problems.items())
-        return lines
-
-
-def _as_config(config: str | Path | Config) -> Config:
-    return config if isinstance(config, Config) else load_config(config)
-
-
-def precheck_reaches(cfg: Config, inputs: pipeline.Inputs) -> dict[str, str]:
-    """Cheap per-reach checks -> {reach_id: problem}. Raises when no reach is usable."""
-    names = [safe_name(r) for r, _ in inputs.reaches]
-    if len(set(names)) != len(names):
-        raise GeoflowError(f"{cfg.reaches.centrelines}: reach ids collide once made path-safe "
-                           f"({', '.join(r for r, _ in inputs.reaches)}); give them distinct letters/digits")
-    extent = box(*inputs.dem.bounds)
-    problems = dict(inputs.unusable)
-    for rid, line in inputs.reaches:
-        if not shapely.contains(extent, line):
-            problems[rid] = (f"reach {rid!r}: centreline in {cfg.reaches.centrelines.name} runs outside the DEM "
-                             f"{cfg.terrain.dem.name}; trim the line to the DEM or use a DEM that covers it")
-    if problems and not set(r for r, _ in inputs.reaches) - set(problems):
-        first = next(iter(problems.values()))
-        more = f" (and {len(problems) - 1} more reach(es))" if len(problems) > 1 else ""
-        raise GeometryError(first + more)
-    return problems
-
-
-def check(config: str | Path | Config) -> CheckResult:
-    """Validate config and inputs and cut every reach's sections; compute and write nothing."""
-    cfg = _as_config(config)
-    inputs = pipeline.open_inputs(cfg)
-    problems = precheck_reaches(cfg, inputs)
-    geoms = {}
-    for rid, line in inputs.reaches:
-        if rid in problems:
-            continue
-        try:
-            geoms[rid] = pipeline.build_geometry(cfg, inputs, rid, line)
-        except GeoflowError as exc:
-            problems[rid] = str(exc)
-    if not geoms:
-        raise GeometryError(next(iter(problems.values())))
-    return CheckResult(config=cfg, inputs=inputs, geometries=geoms, problems=problems)
-
-
-@dataclass
 class _Plan:
     cfg: Config
-    inputs: pipeline.Inputs
+    inputs: Inputs
     manifest: manifest.Manifest
     todo: dict[str, list[str]]          # reach id -> events to compute
     result: RunResult
@@ -130,7 +65,7 @@ class _Plan:
 
 def _plan(config, resume: bool) -> _Plan:
     cfg = _as_config(config)
-    inputs = pipeline.open_inputs(cfg)
+    inputs = open_inputs(cfg)
     problems = precheck_reaches(cfg, inputs)
     hashes = manifest.input_hashes(cfg)
     previous = manifest.load_previous(cfg.run.output_dir) if resume else None
@@ -170,36 +105,6 @@ class Progress:
         if self.done >= self.total:
             sys.stderr.write("\n")
         sys.stderr.flush()
-
-
-def _engine(workers: int, scheduler: str | None):
-    """(submit, as_completed, close) for the chosen engine."""
-    if scheduler:
-        from distributed import Client, as_completed
-        client = Client(scheduler, timeout="30s")
-        return (lambda *a: client.submit(compute_reach, *a, pure=False)), as_completed, client.close
-    if workers > 1:
-        pool = cf.ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context())
-        return (lambda *a: pool.submit(compute_reach, *a)), cf.as_completed, pool.shutdown
-    return (lambda *a: _Deferred(a)), iter, lambda: None
-
-
-class _Deferred:
-    """In-process engine: the task runs when its result is asked for (so progress stays live)."""
-
-    def __init__(self, args):
-        self.args = args
-
-    def result(self):
-        return compute_reach(*self.args)
-
-
-def _pool_context():
-    """'fork' when it is safe (POSIX, no other threads: workers start without re-importing the GIS
-    stack, which dominates start-up); otherwise 'spawn'. Tasks open their own files either way."""
-    if "fork" in multiprocessing.get_all_start_methods() and threading.active_count() == 1:
-        return multiprocessing.get_context("fork")
-    return multiprocessing.get_context("spawn")
 
 
 def _start_logging(out_dirs: list[Path]) -> list[logging.Handler]:
@@ -247,7 +152,7 @@ def _compute(plans: list[_Plan], workers: int, scheduler: str | None, progress: 
     """Run every planned reach; a reach with a junction boundary starts once the reach it joins is done."""
     total = sum(len(ev) for p in plans for ev in p.todo.values())
     bar = Progress(total, progress)
-    submit, as_completed, close = _engine(workers, scheduler)
+    submit, as_completed, close = engine(workers, scheduler)
     try:
         waiting = []
         for p in plans:
@@ -257,7 +162,7 @@ def _compute(plans: list[_Plan], workers: int, scheduler: str | None, progress: 
             for rid, entry in p.manifest.data["reaches"].items():
                 if entry.get("status") == "failed":
                     log.error("reach %s: failed the pre-check - %s", rid, entry.get("error"))
-            deps = pipeline.junction_order(p.cfg, list(p.todo))
+            deps = junction_order(p.cfg, list(p.todo))
             waiting.extend((p, rid, deps.get(rid) if deps.get(rid) in p.todo else None) for rid in p.todo)
         futures, finished = {}, set()
         while waiting or futures:

@@ -16,13 +16,16 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 
-from . import CAUTION, outputs, pipeline, report
-from .config import Config, load_config
-from .errors import ConfigError, GeoflowError, HydraulicsError
+from .. import outputs, report
+from ..config import Config, load_config
+from ..constants import CAUTION
+from ..errors import ConfigError, GeoflowError, HydraulicsError
+from ..mapping import VelocityInputs, write_reach_maps
+from ..naming import safe_name
+from ..roughness import composite_n_by_part
+from . import reach
+from .inputs import Inputs, open_inputs
 from .manifest import part_paths
-from .mapping import VelocityInputs, write_reach_maps
-from .naming import safe_name
-from .roughness import composite_n_by_part
 
 
 @functools.lru_cache(maxsize=4)
@@ -34,8 +37,8 @@ def _config(path: str, sha256: str) -> Config:
 
 
 @functools.lru_cache(maxsize=4)
-def _inputs(path: str, sha256: str) -> pipeline.Inputs:
-    return pipeline.open_inputs(_config(path, sha256))
+def _inputs(path: str, sha256: str) -> Inputs:
+    return open_inputs(_config(path, sha256))
 
 
 def compute_reach(config_path: str, config_sha256: str, reach_id: str, events: list[str]) -> dict:
@@ -46,12 +49,12 @@ def compute_reach(config_path: str, config_sha256: str, reach_id: str, events: l
     try:
         cfg = _config(config_path, config_sha256)
         inputs = _inputs(config_path, config_sha256)
-        geom = pipeline.build_geometry(cfg, inputs, reach_id, dict(inputs.reaches)[reach_id])
+        geom = reach.build_geometry(cfg, inputs, reach_id, dict(inputs.reaches)[reach_id])
         info["sections"], info["warnings"] = len(geom.sections), list(geom.warnings)
         _write_sections_part(cfg, geom)
         t1 = time.perf_counter()
         todo = [e for e in cfg.events if e.name in events]
-        profiles = pipeline.solve_reach(cfg, geom, todo, _junction_wse(cfg, inputs, geom, todo))
+        profiles = reach.solve_reach(cfg, geom, todo, _junction_wse(cfg, inputs, geom, todo))
         info["timings_s"]["hydraulics"] = time.perf_counter() - t1
         for ev in todo:
             info["events"][ev.name] = _compute_event(cfg, inputs, geom, profiles[ev.name], ev)
@@ -81,7 +84,7 @@ def _junction_wse(cfg: Config, inputs, geom, events) -> dict | None:
                               "or was not computed, so this reach cannot be either")
     lines = dict(inputs.reaches)
     try:
-        return pipeline.junction_wse_from(lines[down.reach], prof, geom.centreline, [e.name for e in events],
+        return reach.junction_wse_from(lines[down.reach], prof, geom.centreline, [e.name for e in events],
                                           down.reach)
     except HydraulicsError as exc:
         raise HydraulicsError(f"reach {geom.reach_id!r}: {exc}") from None
@@ -93,7 +96,7 @@ def _compute_event(cfg: Config, inputs, geom, prof, ev) -> dict:
         return {"status": "failed", "error": str(prof)}
     t1 = time.perf_counter()
     try:
-        rows = pipeline.profile_rows(geom, ev.name, prof)
+        rows = outputs.profile_rows(geom, ev.name, prof)
         files = _write_maps(cfg, inputs, geom, ev.name, prof)
         parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(ev.name))
         outputs.write_profile_csv(parts["profile"], rows)
@@ -133,14 +136,7 @@ def _velocity_inputs(cfg: Config, inputs, prof) -> VelocityInputs:
 
 
 def _write_sections_part(cfg: Config, geom) -> None:
-    rows = []
-    for s in geom.sections:
-        lb, rb = s.bank_stations
-        n_lob, n_ch, n_rob = composite_n_by_part(s)
-        rows.append({"reach_id": geom.reach_id, "section_id": s.section_id, "chainage_m": s.chainage,
-                     "left_bank_station_m": lb, "right_bank_station_m": rb, "bed_m": s.bed_elevation,
-                     "n_left_overbank": n_lob, "n_channel": n_ch, "n_right_overbank": n_rob,
-                     "flags": ";".join(s.flags), "geometry": s.line})
+    rows = outputs.section_rows(geom, composite_n_by_part)
     gdf = gpd.GeoDataFrame(rows, geometry="geometry", crs=_crs_wkt(cfg))
     outputs.write_sections_gpkg(part_paths(cfg.run.output_dir, safe_name(geom.reach_id))["sections"], gdf)
 

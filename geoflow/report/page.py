@@ -25,10 +25,8 @@ import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from .outputs import PROFILE_COLUMNS, atomic_path
-
-CAUTION = ("Screening-level 1D steady-flow estimate. Results must be reviewed by a qualified engineer; "
-           "local codes, regulators and licensed practice govern their use.")
+from ..constants import CAUTION
+from ..outputs import PROFILE_COLUMNS, atomic_path
 
 _GROUND = "#8c6d46"
 _WATER = "#cfe6f7"

@@ -19,8 +19,8 @@ import rasterio
 from affine import Affine
 from rasterio.windows import Window
 
-from . import outputs
-from .errors import InputDataError
+from .. import outputs
+from ..errors import InputDataError
 
 GRID_TOLERANCE = 1e-6        # in cells: origin offsets and cell sizes must agree to this
 

@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .errors import GeometryError
+from ..errors import GeometryError
 
 
 def detect_banks(station, elevation, centre_station: float, slope_fraction: float = 0.3, min_slope: float = 0.05,

@@ -24,18 +24,9 @@ import numpy as np
 import shapely
 from shapely.geometry import LineString
 
+from .common import sample_many
+
 SHORTEN_FACTOR = 0.98        # shortened side = this x distance from the centre to the crossing
-ONE_READ_CELLS = 4_000_000   # sample many points in one DEM read when their box is this small
-
-
-def sample_many(dem, xs: list[np.ndarray], ys: list[np.ndarray]) -> list[np.ndarray]:
-    """Bilinear ground elevations at several point sets (one DEM read when their box is small)."""
-    allx, ally = np.concatenate(xs), np.concatenate(ys)
-    cells = (np.ptp(allx) / dem.cell_size + 2) * (np.ptp(ally) / dem.cell_size + 2)
-    if cells <= ONE_READ_CELLS:
-        z = dem.sample(allx, ally)
-        return np.split(z, np.cumsum([x.size for x in xs])[:-1])
-    return [dem.sample(x, y) for x, y in zip(xs, ys)]
 
 
 def adaptive_halves(dem, centre: np.ndarray, normal: np.ndarray, max_half: float, step: float,
@@ -130,30 +121,3 @@ def confluence_halves(rid: str, chain: np.ndarray, centre: np.ndarray, normal: n
     return new
 
 
-def end_bed_levels(line: LineString, dem, fraction: float = 0.1, half_cells: int = 3) -> tuple[float, float]:
-    """Channel-bed level near the start and near the end of ``line`` (m; NaN if the DEM has none).
-
-    Over the first (last) ``fraction`` of the line, short perpendicular profiles of
-    +-``half_cells`` DEM cells are sampled about every cell (at most 51 profiles per end);
-    the bed is the median of the profile minima, so a centreline drawn a little off the
-    thalweg, or a single low cell, does not decide it.
-    """
-    length = float(line.length)
-    cell = float(dem.cell_size)
-    span = max(fraction * length, min(cell, length))
-    k = int(min(max(math.ceil(span / cell), 1), 50)) + 1
-    offs = np.linspace(-half_cells * cell, half_cells * cell, 2 * half_cells + 1)
-    out = []
-    for s in (np.linspace(0.0, span, k), np.linspace(length - span, length, k)):
-        c = shapely.get_coordinates(shapely.line_interpolate_point(line, s))
-        a = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(s - cell, 0, length)))
-        b = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(s + cell, 0, length)))
-        t = b - a
-        t /= np.maximum(np.hypot(t[:, 0], t[:, 1]), 1e-12)[:, None]
-        x = c[:, 0, None] - t[:, 1, None] * offs[None, :]
-        y = c[:, 1, None] + t[:, 0, None] * offs[None, :]
-        z = dem.sample(x, y)
-        lows = np.where(np.isfinite(z), z, np.inf).min(axis=1)
-        lows = lows[np.isfinite(lows)]
-        out.append(float(np.median(lows)) if lows.size else float("nan"))
-    return out[0], out[1]

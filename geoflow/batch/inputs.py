@@ -1,0 +1,67 @@
+"""The inputs of one config, opened once and shared by its reaches (edge I/O through terrain/layers)."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import shapely
+from shapely.geometry import box
+
+from .. import layers, terrain
+from ..config import Config
+from ..config.crosscheck import check_classes, check_events
+from ..errors import ConfigError, GeoflowError
+from ..roughness import landcover_classes
+from ..sections import orient_centreline
+
+
+@dataclass(frozen=True)
+class Inputs:
+    """Opened inputs shared by every reach of a config (no open file handles: picklable)."""
+
+    dem: terrain.Dem
+    reaches: tuple[tuple[str, object], ...]     # (reach_id, LineString in DEM CRS, drawn downstream)
+    cover: object                               # layers.LandCover
+    user_lines: dict = field(default_factory=dict)   # reach_id -> [LineString] user section lines
+    warnings: dict = field(default_factory=dict)     # reach_id -> [str] (e.g. direction reversed)
+    unusable: dict = field(default_factory=dict)     # reach_id -> why its centreline cannot be used
+
+
+def open_inputs(cfg: Config) -> Inputs:
+    """Open the DEM, centrelines and land cover and check them against the roughness table.
+
+    Centrelines drawn upstream (judged from the DEM) are reversed here, so every later stage,
+    junctions included, sees them in the direction of flow.
+    """
+    dem = terrain.open_dem(cfg.terrain.dem, cfg.terrain.vertical_unit)
+    bad: dict = {}
+    reaches = layers.read_centrelines(cfg.reaches.centrelines, dem.crs, layer=cfg.reaches.layer,
+                                      id_field=cfg.reaches.id_field, problems=bad)
+    cover = layers.read_landcover(cfg.roughness.landcover, dem.crs, cfg.roughness.class_field,
+                                  layer=cfg.roughness.layer)
+    check_classes(cfg, landcover_classes(cover))
+    check_events(cfg, [rid for rid, _ in reaches] + list(bad))
+    warnings: dict = {}
+    if cfg.reaches.check_direction:
+        reaches = [_oriented(rid, line, dem, warnings) for rid, line in reaches]
+    user = {}
+    if cfg.sections.lines is not None:
+        user = layers.read_section_lines(cfg.sections.lines, dem.crs, layer=cfg.sections.lines_layer,
+                                         id_field=cfg.reaches.id_field)
+        unknown = sorted(set(user) - {rid for rid, _ in reaches} - set(bad))
+        if unknown:
+            raise ConfigError(f"{cfg.sections.lines}: section lines name reach(es) {', '.join(map(repr, unknown))} "
+                              f"that are not in {cfg.reaches.centrelines.name}; fix the {cfg.reaches.id_field!r} values")
+    return Inputs(dem=dem, reaches=tuple(reaches), cover=cover, user_lines=user, warnings=warnings, unusable=bad)
+
+
+def _oriented(rid: str, line, dem, warnings: dict):
+    """The centreline in the direction of flow (only lines inside the DEM are checked)."""
+    if not shapely.contains(box(*dem.bounds), line):
+        return rid, line
+    try:
+        fixed, note = orient_centreline(rid, line, dem)
+    except GeoflowError:
+        return rid, line
+    if note:
+        warnings.setdefault(rid, []).append(note)
+    return rid, fixed

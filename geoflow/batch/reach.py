@@ -1,0 +1,148 @@
+"""The stages of one reach wired together, in memory: sections -> Manning's n -> steady profiles.
+
+It holds no hydraulics and no file formats itself: sections/ and roughness/ build the
+geometry, hydraulics/ computes; mapping, outputs and reports are written by :mod:`.tasks`.
+"""
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pandas as pd
+from shapely.geometry import Point
+
+from .. import roughness, sections
+from ..config import BoundarySpec, Config, Event
+from ..config.crosscheck import junction_order
+from ..errors import GeoflowError, HydraulicsError
+from ..hydraulics import Boundary, SolverOptions, build_table
+from ..hydraulics import solve_events as hydraulics_solve_events
+from ..records import ReachGeometry
+from .inputs import Inputs
+
+
+def build_geometry(cfg: Config, inputs: Inputs, reach_id: str, line) -> ReachGeometry:
+    """Cut (or take the user's) cross-sections of one reach, sample them, give each segment its n."""
+    sc = cfg.sections.for_reach(reach_id)
+    if reach_id in inputs.user_lines:
+        geom = sections.sections_from_lines(reach_id, line, inputs.user_lines[reach_id], inputs.dem,
+                                            sample_step=sc.sample_step, source=cfg.sections.lines)
+    else:
+        # A section stops short of other reaches' centrelines, except those of tributaries that join
+        # this reach (their mouth lies in this reach's floodplain, which carries their flow too).
+        feeders = {rid for rid, target in junction_order(cfg, [r for r, _ in inputs.reaches]).items()
+                   if target == reach_id}
+        others = {rid: other for rid, other in inputs.reaches if rid != reach_id and rid not in feeders}
+        geom = sections.cut_sections(reach_id, line, inputs.dem, sc.spacing, sc.width, sample_step=sc.sample_step,
+                                     others=others, rise=sc.rise)
+    geom = roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
+                                      default_n=cfg.roughness.default_n)
+    notes = tuple(inputs.warnings.get(reach_id, ()))
+    return dataclasses.replace(geom, warnings=notes + tuple(geom.warnings)) if notes else geom
+
+
+def discharge_along(event: Event, reach_id: str, chainage: np.ndarray) -> np.ndarray:
+    """Discharge (m3/s) at each section: the upstream value, replaced downstream of each flow change."""
+    q = np.full(chainage.shape, float(event.upstream_discharge(reach_id)))
+    for ch in event.changes_for(reach_id):
+        q[chainage >= ch.chainage - 1e-6] = ch.discharge
+    return q
+
+
+def to_boundary(spec: BoundarySpec | None, junction_wse: np.ndarray | None = None) -> Boundary | None:
+    """Solver boundary for a config spec; a junction takes the given WSE per event."""
+    if spec is None:
+        return None
+    if spec.type == "junction":
+        if junction_wse is None:
+            raise HydraulicsError(f"junction boundary with reach {spec.reach!r} needs that reach's result first")
+        return Boundary.stage(wse=junction_wse)
+    if spec.type == "normal_depth":
+        return Boundary.normal_depth(slope=spec.slope)
+    if spec.type == "stage":
+        return Boundary.stage(wse=spec.wse)
+    if spec.type == "critical":
+        return Boundary.critical()
+    return Boundary.rating(discharge=np.asarray(spec.discharge), stage=np.asarray(spec.stage))
+
+
+def solver_options(cfg: Config) -> SolverOptions:
+    h = cfg.hydraulics
+    return SolverOptions(g=h.gravity, regime=cfg.boundary.regime, friction_slope=h.friction_slope,
+                         contraction=h.contraction, expansion=h.expansion)
+
+
+def build_tables(geom: ReachGeometry, cfg: Config | None = None, discharge: float | None = None) -> list:
+    """Hydraulic property tables of every section.
+
+    With ``cfg``, classes that give ``n_by_depth`` make n vary with the local flow depth over each
+    segment, and classes that give ``n_by_discharge`` take n at ``discharge`` (the event's
+    upstream discharge of the reach; tables are then built per event).
+    """
+    classes = {} if cfg is None else cfg.roughness.classes
+    return [build_table(s.station, s.elevation, roughness.n_at_discharge(s, classes, discharge), s.part,
+                        n_depth=roughness.n_by_depth_table(s, classes),
+                        name=f"reach {geom.reach_id!r} section {s.section_id}")
+            for s in geom.sections]
+
+
+def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Event],
+                 junction_wse: dict | None = None) -> dict:
+    """Steady profiles of several events on one reach, solved together (vectorised across events).
+
+    Returns {event name: Profile or HydraulicsError}: if the joint solve fails, each event is
+    solved alone so one bad event (e.g. a discharge outside a rating table) spares the others.
+    """
+    chainage = np.array([s.chainage for s in geom.sections])
+    down, up = cfg.boundary.for_reach(geom.reach_id)
+    q = np.stack([discharge_along(ev, geom.reach_id, chainage) for ev in events])
+    jw = None if junction_wse is None else np.array([junction_wse[ev.name] for ev in events])
+    kw = dict(upstream=to_boundary(up), options=solver_options(cfg))
+    try:
+        return dict(zip((ev.name for ev in events),
+                        hydraulics_solve_events(tables, geom.lengths, q, downstream=to_boundary(down, jw), **kw)))
+    except GeoflowError:
+        pass
+    out = {}
+    for k, (ev, qe) in enumerate(zip(events, q)):
+        try:
+            bound = to_boundary(down, None if jw is None else jw[k:k + 1])
+            out[ev.name] = hydraulics_solve_events(tables, geom.lengths, qe[None, :], downstream=bound, **kw)[0]
+        except GeoflowError as exc:
+            out[ev.name] = HydraulicsError(f"reach {geom.reach_id!r}, event {ev.name!r}: {exc}")
+    return out
+
+
+def solve_reach(cfg: Config, geom: ReachGeometry, events: list[Event] | None = None,
+                junction_wse: dict | None = None) -> dict:
+    """Steady profiles of the events (default: all) on one reach -> {event: Profile or HydraulicsError}.
+
+    Events are solved together on shared tables, unless some class's n depends on discharge:
+    then each event gets tables built with n at its own upstream discharge.
+    """
+    events = list(cfg.events) if events is None else events
+    if not roughness.varies_with_discharge(cfg.roughness.classes):
+        return solve_events(cfg, geom, build_tables(geom, cfg), events, junction_wse)
+    out = {}
+    for ev in events:
+        tables = build_tables(geom, cfg, discharge=ev.upstream_discharge(geom.reach_id))
+        out.update(solve_events(cfg, geom, tables, [ev], junction_wse))
+    return out
+
+
+def junction_wse_from(receiving_line, receiving_profile: pd.DataFrame, tributary_line, events: list[str],
+                      receiving_id: str) -> dict:
+    """WSE per event of the receiving reach where the tributary's downstream end meets it.
+
+    The tributary's last vertex is projected onto the receiving centreline; its chainage there
+    interpolates the receiving reach's WSE linearly between sections.
+    """
+    end = Point(tributary_line.coords[-1])
+    ch = receiving_line.project(end)
+    out = {}
+    for ev in events:
+        rows = receiving_profile[receiving_profile["event"] == ev].sort_values("chainage_m")
+        if rows.empty or rows["wse_m"].isna().all():
+            raise HydraulicsError(f"junction reach {receiving_id!r} has no result for event {ev!r}")
+        out[ev] = float(np.interp(ch, rows["chainage_m"], rows["wse_m"]))
+    return out

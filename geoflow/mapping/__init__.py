@@ -1,0 +1,10 @@
+"""Flood maps of a reach: water-surface elevation between sections, depth, velocity, outlines.
+
+- ``engine``: :func:`map_reach` (in memory) and :func:`write_reach_maps` (block-wise COGs);
+- ``blocks`` / ``join``: the per-block work and the joining of wet areas across block edges;
+- ``mosaic``: per-event maximum where reach rasters overlap.
+"""
+from .engine import MapSummary, ReachMap, VelocityInputs, map_reach, write_reach_maps
+from .mosaic import mosaic_max
+
+__all__ = ["MapSummary", "ReachMap", "VelocityInputs", "map_reach", "mosaic_max", "write_reach_maps"]

@@ -1,0 +1,30 @@
+"""What geoflow writes: table contracts and rows (``tables``) and atomic file writers (``files``).
+
+Every writer is atomic (a temporary name beside the final one, moved over it when complete).
+"""
+from .files import (
+                    BlockWriter,
+                    atomic_path,
+                    block_raster_writer,
+                    cog_options,
+                    tiled_gtiff_options,
+                    write_extent_gpkg,
+                    write_manifest,
+                    write_profile_csv,
+                    write_raster,
+                    write_sections_gpkg,
+)
+from .tables import (
+                    EXTENT_COLUMNS,
+                    INFO_ONLY_FLAGS,
+                    PROFILE_COLUMNS,
+                    SECTION_COLUMNS,
+                    empty_profile,
+                    profile_rows,
+                    section_rows,
+)
+
+__all__ = ["BlockWriter", "EXTENT_COLUMNS", "INFO_ONLY_FLAGS", "PROFILE_COLUMNS", "SECTION_COLUMNS", "atomic_path",
+           "block_raster_writer", "cog_options", "empty_profile", "profile_rows", "section_rows",
+           "tiled_gtiff_options", "write_extent_gpkg", "write_manifest", "write_profile_csv", "write_raster",
+           "write_sections_gpkg"]

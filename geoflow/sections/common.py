@@ -1,0 +1,82 @@
+"""Shared pieces of every way of making sections: sampling the DEM, filling small gaps, checks.
+
+Pure geometry on shapely/numpy; the DEM is reached only through ``dem.sample(x, y)``,
+``dem.cell_size`` and ``dem.bounds``.
+"""
+from __future__ import annotations
+
+import numpy as np
+import shapely
+from shapely.geometry import LineString
+
+from ..errors import GeometryError
+from ..records import Section
+
+MAX_GAP_SAMPLES = 3          # nodata runs up to this many samples are interpolated
+ONE_READ_CELLS = 4_000_000   # sample many points in one DEM read when their box is this small
+
+
+def build_sections(rid: str, chain, lines, stations, elevations, flags, warnings) -> list[Section]:
+    """Section records from sampled profiles; short nodata runs filled, long ones an error."""
+    sections = []
+    for k in range(len(chain)):
+        z, filled = fill_small_gaps(elevations[k], MAX_GAP_SAMPLES)
+        if z is None:
+            raise GeometryError(
+                f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) has DEM nodata over more than "
+                f"{MAX_GAP_SAMPLES} samples; fill the DEM holes, extend the DEM or reduce [sections] width"
+            )
+        if filled:
+            flags[k].append("ground_gap_filled")
+            warnings.append(f"reach {rid}: section {k} (chainage {chain[k]:.1f} m): {filled} nodata sample(s) interpolated")
+        sections.append(Section(reach_id=rid, section_id=k, chainage=float(chain[k]), line=lines[k],
+                                station=stations[k], elevation=z, flags=tuple(flags[k])))
+    return sections
+
+
+def fill_small_gaps(values: np.ndarray, max_gap: int = MAX_GAP_SAMPLES) -> tuple[np.ndarray | None, int]:
+    """Fill NaN runs of at most ``max_gap`` samples by linear interpolation along the profile.
+
+    Runs touching an end take the nearest valid value. Returns (filled copy, number of
+    samples filled), or (None, 0) when a longer run (or no valid sample) exists.
+    """
+    v = np.asarray(values, dtype=np.float64)
+    bad = ~np.isfinite(v)
+    if not bad.any():
+        return v.copy(), 0
+    if bad.all():
+        return None, 0
+    edges = np.diff(np.concatenate(([0], bad.astype(np.int8), [0])))
+    run_len = np.flatnonzero(edges == -1) - np.flatnonzero(edges == 1)
+    if run_len.max() > max_gap:
+        return None, 0
+    idx = np.arange(v.size)
+    out = v.copy()
+    out[bad] = np.interp(idx[bad], idx[~bad], v[~bad])
+    return out, int(bad.sum())
+
+
+def check_positive(rid: str, **values: float) -> None:
+    for key, value in values.items():
+        if not (value is not None and np.isfinite(value) and value > 0):
+            raise GeometryError(f"reach {rid}: [sections] {key} = {value!r} must be a positive number of metres")
+
+
+def check_inside(rid: str, line: LineString, bounds) -> None:
+    extent = shapely.box(*bounds)
+    if not shapely.covers(extent, line):
+        outside = shapely.length(shapely.difference(line, extent))
+        raise GeometryError(
+            f"reach {rid}: {outside:.1f} m of the {line.length:.1f} m centreline lies outside the DEM extent "
+            f"{tuple(round(b, 1) for b in bounds)}; use a DEM that covers the reach or clip the centreline"
+        )
+
+
+def sample_many(dem, xs: list[np.ndarray], ys: list[np.ndarray]) -> list[np.ndarray]:
+    """Bilinear ground elevations at several point sets (one DEM read when their box is small)."""
+    allx, ally = np.concatenate(xs), np.concatenate(ys)
+    cells = (np.ptp(allx) / dem.cell_size + 2) * (np.ptp(ally) / dem.cell_size + 2)
+    if cells <= ONE_READ_CELLS:
+        z = dem.sample(allx, ally)
+        return np.split(z, np.cumsum([x.size for x in xs])[:-1])
+    return [dem.sample(x, y) for x, y in zip(xs, ys)]
