@@ -5,7 +5,6 @@ import argparse
 import sys
 
 from . import __version__
-from .batch import check, run
 from .constants import CAUTION
 from .errors import GeoflowError
 
@@ -32,6 +31,9 @@ def _parser() -> argparse.ArgumentParser:
                         "same file system")
     r.add_argument("--resume", action="store_true",
                    help="skip reach x event units that manifest.json records complete with the same config and inputs")
+    r.add_argument("--keep-going", action="store_true",
+                   help="compute the reaches that pass validation even when others fail it (those are recorded "
+                        "as failed; exit status 1); without it any problem stops the run before it writes")
     r.add_argument("--quiet", action="store_true", help="no progress display")
     c = sub.add_parser("check", help="validate the config and inputs, list reaches, sections and events; "
                                      "compute and write nothing",
@@ -44,6 +46,7 @@ def _parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
+        from .batch import check, run     # after parsing: --help and --version stay fast
         if args.command == "check":
             for line in check(args.config).summary_lines():
                 print(line)
@@ -51,7 +54,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.workers < 1:
             raise GeoflowError(f"--workers must be 1 or more, got {args.workers}")
         results = run(list(args.config), workers=args.workers, scheduler=args.scheduler, resume=args.resume,
-                      progress=not args.quiet)
+                      progress=not args.quiet, keep_going=args.keep_going)
     except GeoflowError as exc:
         print(f"geoflow: error: {exc}", file=sys.stderr)
         return 2
@@ -72,7 +75,8 @@ def main(argv: list[str] | None = None) -> int:
               + (f", {result.reused_units} unit(s) reused" if result.reused_units else "") + ")")
     print(f"CAUTION: {CAUTION}")
     if failed:
-        print(f"geoflow: {failed} reach(es) failed; see manifest.json and run.log", file=sys.stderr)
+        print(f"geoflow: {failed} reach(es) failed; see manifest.json and run.log, fix the cause and run again "
+              "with --resume to compute only what is missing", file=sys.stderr)
         return 1
     return 0
 

@@ -64,7 +64,9 @@ class Dem:
             with rasterio.open(self.path) as ds:
                 arr = ds.read(1, window=window, masked=True)
         except rasterio.errors.RasterioError as exc:
-            raise InputDataError(f"{self.path}: cannot read DEM ({exc}); check the file is a valid raster") from None
+            text = " ".join(str(exc).replace("See previous exception for details.", "").split())
+            raise InputDataError(f"{self.path}: cannot read the DEM's cells ({text}); the file may be truncated or "
+                                 "damaged - check it opens in a GIS, or export it again") from None
         out = np.asarray(arr.filled(np.nan), dtype=np.float64)
         if self.z_factor != 1.0:
             out *= self.z_factor

@@ -92,10 +92,17 @@ def test_failing_reach_is_recorded_and_the_rest_go_on(tmp_path, capsys):
     from geoflow.cli import main
     v = multi_valley(tmp_path, n_reaches=2, length=400.0, broken=True)
     cfg = config_for(v, tmp_path / "b", "out_b")
-    assert main(["run", str(cfg), "--quiet"]) == 1
+    out = v.dem.parent / "out_b"
+    # Without --keep-going a reach that fails validation stops the run before it writes (as check does).
+    assert main(["run", str(cfg), "--quiet"]) == 2
+    cap = capsys.readouterr()
+    assert "off_dem" in cap.err and "outside the DEM" in cap.err and len(cap.err.strip().splitlines()) == 1
+    assert not out.exists()
+    assert main(["check", str(cfg)]) == 2
+    capsys.readouterr()
+    assert main(["run", str(cfg), "--quiet", "--keep-going"]) == 1
     cap = capsys.readouterr()
     assert "off_dem" in cap.out and "outside the DEM" in cap.out and "Traceback" not in cap.err
-    out = v.dem.parent / "out_b"
     man = json.loads((out / "manifest.json").read_text())
     assert man["reaches"]["off_dem"]["status"] == "failed"
     assert "outside the DEM" in man["reaches"]["off_dem"]["error"]
@@ -150,7 +157,9 @@ def test_reach_with_broken_geometry_fails_alone(tmp_path, capsys):
     pd.concat([gdf, extra]).pipe(gpd.GeoDataFrame, crs=gdf.crs).to_file(v.centrelines, layer="centrelines",
                                                                          driver="GPKG")
     cfg = config_for(v, tmp_path / "g", "out_g")
-    assert main(["run", str(cfg), "--quiet"]) == 1
+    assert main(["run", str(cfg), "--quiet"]) == 2 and not (v.dem.parent / "out_g").exists()
+    capsys.readouterr()
+    assert main(["run", str(cfg), "--quiet", "--keep-going"]) == 1
     out = capsys.readouterr().out
     assert "empty: FAILED" in out and "null or empty" in out and "split: FAILED" in out and "do not join" in out
     man = json.loads((v.dem.parent / "out_g" / "manifest.json").read_text())

@@ -33,7 +33,7 @@ PURE = {
     "geoflow.errors": set(),
     "geoflow.naming": set(),
     "geoflow.records": {"numpy", "shapely"},
-    "geoflow.config": set(),
+    "geoflow.config": {"numpy"},
     "geoflow.hydraulics": {"numpy", "scipy", "numba"},
     "geoflow.sections": {"numpy", "shapely"},
     "geoflow.roughness": {"numpy", "shapely"},

@@ -162,8 +162,8 @@ def test_user_dog_leg_lines(tmp_path):
 
 
 @pytest.mark.parametrize("bad, words", [
-    (shapely.LineString([(20, 120), (20, 180)]), "crosses 0 times"),
-    (shapely.LineString([(60, 40), (60, 160), (70, 160), (70, 40)]), "crosses 2 times"),
+    (shapely.LineString([(20, 120), (20, 180)]), "does not cross the centreline"),
+    (shapely.LineString([(60, 40), (60, 160), (70, 160), (70, 40)]), "crosses the centreline 2 times"),
 ])
 def test_user_line_must_cross_once(tmp_path, bad, words):
     dem = write_surface(tmp_path, PLANE)

@@ -1,13 +1,13 @@
 """Reaches x events over one or many configs: check, schedule reach tasks, assemble the outputs.
 
 - ``run``: :func:`run` (behind ``geoflow run`` and ``geoflow.run``);
-- ``check``: :func:`check` (behind ``geoflow check``);
+- ``validate``: :func:`check` (behind ``geoflow check``), the validation ``run`` does first;
 - ``inputs`` / ``reach``: a config's opened inputs and the per-reach stage wiring (in memory);
 - ``tasks``: one reach task (sections -> n -> profiles -> maps -> part files);
 - ``engines``: in-process, local process pool or Dask;
 - ``manifest`` / ``assemble``: what was computed from which inputs; the run-level outputs.
 """
-from .check import CheckResult, check
+from .validate import CheckResult, check
 from .run import RunResult, run
 
 __all__ = ["CheckResult", "RunResult", "check", "run"]

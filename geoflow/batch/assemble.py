@@ -1,4 +1,4 @@
-"""Build the run-level outputs from the per-reach part files a run (or earlier runs) wrote.
+"""Build the run-level outputs from the per-reach part files of this run (and of units it reused).
 
 Order is the centreline layer's reach order and the config's event order, so the same inputs
 give byte-identical tables whichever engine computed the reaches and in whatever order.
@@ -18,6 +18,7 @@ from .. import outputs
 from ..config import Config
 from ..mapping import mosaic_max
 from ..naming import safe_name
+from .layout import MANIFEST_NAME, relative_name, unrecorded_files
 from .manifest import Manifest, part_paths, unit_key
 from .tasks import read_profile_parts
 
@@ -44,6 +45,9 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     if "extent" in cfg.mapping.outputs:
         result.paths["extent"] = outputs.write_extent_gpkg(out / "inundation.gpkg", _extents(cfg, done, crs))
     result.paths.update(_mosaics(cfg, done))
+    man.data["files"] = sorted(relative_name(out, f) for f in result.paths.values())
+    recorded = man.recorded_files() | {MANIFEST_NAME}
+    man.data["stale_files"] = unrecorded_files(out, recorded)
     man.data["finished"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
     man.data["elapsed_s"] = round(result.elapsed_s, 3)
     man.data["failed_reaches"] = sorted(r for r, v in man.data["reaches"].items() if v.get("status") != "complete")

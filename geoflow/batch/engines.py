@@ -1,38 +1,117 @@
-"""Where reach tasks run: in this process, in a local process pool, or on a Dask cluster."""
+"""Where reach tasks run: in this process, in a local process pool, or on a Dask cluster.
+
+Each engine has the same small interface: ``submit(spec) -> handle``, ``wait(handles) -> handle``
+(the next one done) and ``result(handle) -> info dict``; ``close()`` frees it. A worker that dies
+(killed, out of memory) never raises into the batch: its reach comes back failed with a message
+that says to run again with ``--resume``.
+"""
 from __future__ import annotations
 
 import concurrent.futures as cf
 import multiprocessing
 import threading
 
-from .tasks import compute_reach
+from ..errors import GeoflowError
+from .tasks import TaskSpec, compute_reach
+
+SCHEDULER_TIMEOUT_S = 5
+WORKER_DIED = ("the worker process computing this reach died (killed, or out of memory){where}; "
+               "run again with --resume to compute the reaches left")
+
+
+class InProcess:
+    """Tasks run in this process when their result is asked for (so progress stays live)."""
+
+    def submit(self, spec: TaskSpec):
+        return spec
+
+    def wait(self, handles):
+        return handles[0]
+
+    def result(self, spec: TaskSpec) -> dict:
+        return compute_reach(spec)
+
+    def close(self) -> None:
+        pass
+
+
+class Pool:
+    """A local process pool; a dead worker fails the reaches in flight and the pool is started anew."""
+
+    def __init__(self, workers: int):
+        self.workers = workers
+        self.pool = self._new()
+
+    def _new(self):
+        return cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=pool_context())
+
+    def submit(self, spec: TaskSpec):
+        try:
+            return self.pool.submit(compute_reach, spec)
+        except cf.process.BrokenProcessPool:
+            self.pool.shutdown(wait=False, cancel_futures=True)
+            self.pool = self._new()
+            return self.pool.submit(compute_reach, spec)
+
+    def wait(self, handles):
+        done, _ = cf.wait(handles, return_when=cf.FIRST_COMPLETED)
+        return next(iter(done))
+
+    def result(self, fut) -> dict:
+        try:
+            return fut.result()
+        except cf.process.BrokenProcessPool:
+            return {"status": "failed", "error": WORKER_DIED.format(where=""), "events": {}}
+
+    def close(self) -> None:
+        self.pool.shutdown(wait=True, cancel_futures=True)
+
+
+class DaskCluster:
+    """Tasks on a Dask distributed cluster (workers must see the same file system)."""
+
+    def __init__(self, address: str):
+        from distributed import Client
+        try:
+            self.client = Client(address, timeout=f"{SCHEDULER_TIMEOUT_S}s")
+        except (OSError, TimeoutError, ValueError) as exc:
+            text = " ".join(str(exc).split())[:160]
+            raise GeoflowError(f"--scheduler {address}: cannot reach the Dask scheduler within "
+                               f"{SCHEDULER_TIMEOUT_S} s ({text}); check the address and that the scheduler "
+                               "is running") from None
+
+    def submit(self, spec: TaskSpec):
+        return self.client.submit(compute_reach, spec, pure=False)
+
+    def wait(self, handles):
+        from distributed import wait
+        done = wait(handles, return_when="FIRST_COMPLETED").done
+        return next(iter(done))
+
+    def result(self, fut) -> dict:
+        try:
+            return fut.result()
+        except Exception as exc:       # KilledWorker, CommClosedError: the worker (or its machine) went away
+            return {"status": "failed", "error": WORKER_DIED.format(where=f" on the cluster ({type(exc).__name__})"),
+                    "events": {}}
+
+    def close(self) -> None:
+        self.client.close()
 
 
 def engine(workers: int, scheduler: str | None):
-    """(submit, as_completed, close) for the chosen engine."""
+    """The engine for ``--workers`` / ``--scheduler``; connects (and may fail) before anything is written."""
     if scheduler:
-        from distributed import Client, as_completed
-        client = Client(scheduler, timeout="30s")
-        return (lambda *a: client.submit(compute_reach, *a, pure=False)), as_completed, client.close
+        return DaskCluster(scheduler)
     if workers > 1:
-        pool = cf.ProcessPoolExecutor(max_workers=workers, mp_context=pool_context())
-        return (lambda *a: pool.submit(compute_reach, *a)), cf.as_completed, pool.shutdown
-    return (lambda *a: _Deferred(a)), iter, lambda: None
-
-
-class _Deferred:
-    """In-process engine: the task runs when its result is asked for (so progress stays live)."""
-
-    def __init__(self, args):
-        self.args = args
-
-    def result(self):
-        return compute_reach(*self.args)
+        return Pool(workers)
+    return InProcess()
 
 
 def pool_context():
     """'fork' when it is safe (POSIX, no other threads: workers start without re-importing the GIS
-    stack, which dominates start-up); otherwise 'spawn'. Tasks open their own files either way."""
+    stack, which dominates start-up, and share the geometry built while validating); otherwise
+    'spawn'. Tasks open their own files either way."""
     if "fork" in multiprocessing.get_all_start_methods() and threading.active_count() == 1:
         return multiprocessing.get_context("fork")
     return multiprocessing.get_context("spawn")

@@ -8,7 +8,7 @@ from shapely.geometry import box
 
 from .. import layers, terrain
 from ..config import Config
-from ..config.crosscheck import check_classes, check_events
+from ..config.crosscheck import input_problems, raise_problems
 from ..errors import ConfigError, GeoflowError
 from ..roughness import landcover_classes
 from ..sections import orient_centreline
@@ -38,8 +38,8 @@ def open_inputs(cfg: Config) -> Inputs:
                                       id_field=cfg.reaches.id_field, problems=bad)
     cover = layers.read_landcover(cfg.roughness.landcover, dem.crs, cfg.roughness.class_field,
                                   layer=cfg.roughness.layer)
-    check_classes(cfg, landcover_classes(cover))
-    check_events(cfg, [rid for rid, _ in reaches] + list(bad))
+    raise_problems(cfg, input_problems(cfg, [rid for rid, _ in reaches] + list(bad), landcover_classes(cover),
+                                       dem.cell_size))
     warnings: dict = {}
     if cfg.reaches.check_direction:
         reaches = [_oriented(rid, line, dem, warnings) for rid, line in reaches]

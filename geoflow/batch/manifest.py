@@ -1,14 +1,20 @@
-"""The run manifest: what was computed, from which inputs, and what can be reused on --resume.
+"""The run manifest: what was computed, from which inputs, which files it wrote, what --resume may reuse.
 
-The manifest is rewritten atomically after every finished reach, so a run killed at any
-moment leaves a manifest that lists exactly the reach x event units whose outputs are
-complete. ``--resume`` reuses a unit only when the config text and every input file hash
-are unchanged and its part files are still on disk.
+The manifest is rewritten atomically after every finished reach, so a run killed at any moment
+leaves a manifest that lists exactly the reach x event units whose outputs are complete.
+
+Input identity: the SHA-256 of the config text and of every input file the config names
+(:meth:`geoflow.config.Config.input_files`, with the side files GDAL keeps beside them), and the
+geoflow version. ``--resume`` reuses a unit only when that identity is unchanged and the unit's
+files are still on disk; every cache of opened inputs keys on it too.
+
+Paths in the manifest are relative to the output folder (inputs may lie outside it: ``../``).
 """
 from __future__ import annotations
 
 import hashlib
 import json
+import os
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -16,9 +22,7 @@ from pathlib import Path
 from .. import __version__, outputs
 from ..config import Config
 from ..constants import CAUTION
-
-MANIFEST_NAME = "manifest.json"
-PARTS_DIR = "parts"            # per reach x event intermediate tables, kept for --resume
+from .layout import MANIFEST_NAME, PARTS_DIR, relative_name, side_files
 
 
 def file_sha256(path: Path) -> str:
@@ -29,10 +33,34 @@ def file_sha256(path: Path) -> str:
     return h.hexdigest()
 
 
-def input_hashes(cfg: Config) -> dict[str, dict[str, str]]:
-    """sha256 of every input file named by the config (GeoPackage side files included if present)."""
-    paths = {"dem": cfg.terrain.dem, "centrelines": cfg.reaches.centrelines, "landcover": cfg.roughness.landcover}
-    return {k: {"path": str(p), "sha256": file_sha256(p)} for k, p in paths.items() if p.is_file()}
+def input_hashes(cfg: Config) -> dict[str, dict]:
+    """{TOML key: {"path", "sha256", "bytes"}} of every input the config names; the hash covers the
+    file and its side files (shapefile parts, GeoPackage WAL, .aux.xml), in a fixed order."""
+    out = {}
+    for key, path in cfg.input_files().items():
+        files = side_files(path)
+        h = hashlib.sha256()
+        for p in files:
+            h.update(p.name.encode("utf-8") + b"\0" + file_sha256(p).encode("ascii"))
+        out[key] = {"path": os.path.relpath(path, cfg.run.output_dir), "sha256": h.hexdigest(),
+                    "bytes": sum(p.stat().st_size for p in files)}
+    return out
+
+
+def identity(cfg: Config, hashes: dict) -> str:
+    """One token for the config text, every input's content and the geoflow version."""
+    doc = {"version": __version__, "config": cfg.sha256, "inputs": {k: v["sha256"] for k, v in hashes.items()}}
+    return hashlib.sha256(json.dumps(doc, sort_keys=True).encode("utf-8")).hexdigest()
+
+
+def fingerprints(cfg: Config) -> tuple[tuple[str, int, int], ...]:
+    """(path, size, mtime_ns) of every input and side file: a cheap check that nothing changed."""
+    out = []
+    for path in cfg.input_files().values():
+        for p in side_files(path):
+            st = p.stat()
+            out.append((str(p), st.st_size, st.st_mtime_ns))
+    return tuple(out)
 
 
 def unit_key(reach_id: str, event: str) -> str:
@@ -40,7 +68,7 @@ def unit_key(reach_id: str, event: str) -> str:
 
 
 def part_paths(out_dir: Path, safe_reach: str, safe_event: str | None = None) -> dict[str, Path]:
-    base = out_dir / PARTS_DIR / safe_reach
+    base = Path(out_dir) / PARTS_DIR / safe_reach
     if safe_event is None:
         return {"sections": base / "sections.gpkg"}
     return {"profile": base / f"{safe_event}.profile.csv", "extent": base / f"{safe_event}.extent.gpkg"}
@@ -54,63 +82,99 @@ class Manifest:
     data: dict = field(default_factory=dict)
 
     @classmethod
-    def start(cls, cfg: Config, hashes: dict, previous: dict | None, reuse: set[str]) -> "Manifest":
+    def start(cls, cfg: Config, hashes: dict, ident: str, previous: dict | None, reuse: set[str]) -> "Manifest":
         units = {k: v for k, v in ((previous or {}).get("units") or {}).items() if k in reuse}
         data = {
             "geoflow_version": __version__,
             "caution": CAUTION,
-            "config": str(cfg.path),
+            "config": os.path.relpath(cfg.path, cfg.run.output_dir),
             "config_sha256": cfg.sha256,
             "inputs": hashes,
+            "identity": ident,
             "events": [e.name for e in cfg.events],
             "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
             "finished": None,
             "reaches": {},
             "units": units,
         }
-        return cls(path=cfg.run.output_dir / MANIFEST_NAME, data=data)
+        return cls(path=Path(cfg.run.output_dir) / MANIFEST_NAME, data=data)
 
     def record_reach(self, reach_id: str, info: dict) -> None:
         self.data["reaches"][reach_id] = {k: info.get(k) for k in ("status", "error", "sections", "warnings",
-                                                                   "timings_s")}
+                                                                   "flags", "files", "timings_s")
+                                          if info.get(k) is not None or k in ("status", "error")}
         for ev, unit in (info.get("events") or {}).items():
             self.data["units"][unit_key(reach_id, ev)] = unit
+
+    def recorded_files(self) -> set[str]:
+        """Every file (relative name) the manifest says this run wrote or reused."""
+        names = set(self.data.get("files", []))
+        for entry in list(self.data["reaches"].values()) + list(self.data["units"].values()):
+            names.update(entry.get("files") or [])
+        return names
 
     def save(self) -> None:
         outputs.write_manifest(self.path, self.data)
 
 
 def load_previous(out_dir: Path) -> dict | None:
-    path = out_dir / MANIFEST_NAME
+    path = Path(out_dir) / MANIFEST_NAME
     try:
-        return json.loads(path.read_text())
+        data = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, ValueError):
         return None
+    return data if isinstance(data, dict) else None
 
 
-def reusable_units(previous: dict | None, cfg: Config, hashes: dict, safe) -> set[str]:
-    """Units recorded complete by a previous run with the same config and inputs, parts present."""
-    if not previous or previous.get("config_sha256") != cfg.sha256:
+def previous_files(previous: dict | None) -> set[str]:
+    """Every file a previous run's manifest records (relative names)."""
+    if not previous:
         return set()
-    old = {k: v.get("sha256") for k, v in (previous.get("inputs") or {}).items()}
-    if old != {k: v["sha256"] for k, v in hashes.items()}:
+    names = set(previous.get("files") or [])
+    for group in ("reaches", "units"):
+        for entry in (previous.get(group) or {}).values():
+            if isinstance(entry, dict):
+                names.update(entry.get("files") or [])
+    return {n for n in names if isinstance(n, str)}
+
+
+def reusable_units(previous: dict | None, cfg: Config, ident: str, safe) -> set[str]:
+    """Units recorded complete by a previous run with the same identity, their files on disk."""
+    if not previous or previous.get("identity") != ident:
         return set()
+    out = Path(cfg.run.output_dir)
     keep = set()
     for key, unit in (previous.get("units") or {}).items():
-        if unit.get("status") != "complete" or "/" not in key:
+        if not isinstance(unit, dict) or unit.get("status") != "complete" or "/" not in key:
             continue
         reach, event = key.split("/", 1)
-        paths = part_paths(cfg.run.output_dir, safe(reach), safe(event))
-        files = [paths["profile"], part_paths(cfg.run.output_dir, safe(reach))["sections"]]
-        files += [Path(p) for p in unit.get("files", [])]
+        reach_files = ((previous.get("reaches") or {}).get(reach) or {}).get("files") or []
+        files = [out / n for n in list(unit.get("files") or []) + list(reach_files)]
+        files += [part_paths(out, safe(reach), safe(event))["profile"], part_paths(out, safe(reach))["sections"]]
         if all(p.is_file() for p in files):
             keep.add(key)
     return keep
 
 
+def kept_files(previous: dict | None, reuse: set[str]) -> set[str]:
+    """Files of the reused units (and of their reaches), which a resumed run keeps."""
+    if not previous:
+        return set()
+    names: set[str] = set()
+    for key in reuse:
+        names.update((previous.get("units") or {}).get(key, {}).get("files") or [])
+        reach = key.split("/", 1)[0]
+        names.update(((previous.get("reaches") or {}).get(reach) or {}).get("files") or [])
+    return names
+
+
 def clear_stale_temporaries(out_dir: Path) -> int:
-    """Delete temporary files (``.<name>.tmp-<pid>...``) a killed run left in the output folder."""
+    """Delete temporary files (``.<name>.tmp-<pid>...``) a killed run left in the output folder.
+
+    Called only while this run holds the folder's lock, so no other run's temporaries are touched.
+    """
     count = 0
+    out_dir = Path(out_dir)
     if out_dir.is_dir():
         for p in out_dir.rglob(".*.tmp-*"):
             try:
@@ -119,3 +183,8 @@ def clear_stale_temporaries(out_dir: Path) -> int:
             except OSError:
                 pass
     return count
+
+
+__all__ = ["Manifest", "clear_stale_temporaries", "file_sha256", "fingerprints", "identity", "input_hashes",
+           "kept_files", "load_previous", "part_paths", "previous_files", "relative_name", "reusable_units",
+           "unit_key"]

@@ -1,21 +1,24 @@
-"""Reaches x events over one or many configs: check first, then compute on an engine, then assemble.
+"""Reaches x events over one or many configs: validate, lock, compute on an engine, assemble.
 
 ``run()`` is the library entry point behind ``geoflow run`` (and ``geoflow.run``).
 
-1. Plan: every config is loaded and its inputs opened and checked before anything is written;
-   a config error, or a config whose every reach is unusable, raises (nothing written).
-   Reaches that fail the cheap pre-check (e.g. centreline off the DEM) are recorded as failed.
-2. Compute: each reach is one task (tasks.compute_reach) run in this process, in a local
-   process pool (``workers > 1``) or on a Dask cluster (``scheduler`` address). Tasks get the
-   config path and a reach id, never arrays; results are identical whichever engine runs them.
-   The manifest is saved after every finished reach, so a killed run can be resumed.
-3. Assemble: profile.csv, sections.gpkg, inundation.gpkg and the final manifest are built from
-   the per-reach part files, in the order of the centreline layer.
+1. Validate (:func:`geoflow.batch.validate.validate`, exactly what ``geoflow check`` does) every
+   config before anything is written: any problem raises one line, nothing written. With
+   ``keep_going`` the reaches that fail validation are recorded as failed and the rest go on.
+2. Connect the engine (a Dask scheduler that cannot be reached fails here, nothing written),
+   then lock every output folder (a second run into the same folder is refused).
+3. Clear what earlier runs left: the files a previous manifest records (with ``--resume``, all
+   but those of the units it proves current) and temporary files of killed runs.
+4. Compute: each reach is one task run in this process, in a local process pool (``workers >
+   1``) or on a Dask cluster (``scheduler``). A reach with a junction boundary starts once the
+   reach it joins is done. The manifest is saved after every reach, so a killed run can resume.
+5. Assemble profile.csv, sections.gpkg, inundation.gpkg, mosaics and the final manifest, list
+   files in the managed folders that no run recorded as stale, release the locks.
 """
 from __future__ import annotations
 
+import contextlib
 import logging
-import sys
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -25,15 +28,18 @@ import pandas as pd
 from ..config import Config
 from ..config.crosscheck import junction_order
 from ..constants import CAUTION
-from ..errors import OutputError
+from ..errors import GeoflowError, OutputError, is_disk_full, write_error
 from ..naming import safe_name
-from . import assemble, manifest
-from .check import _as_config, precheck_reaches
+from . import assemble, layout, manifest
 from .engines import engine
-from .inputs import Inputs, open_inputs
+from .inputs import Inputs
+from .lock import FolderLock
+from .progress import Progress
+from .tasks import GEOMETRY_CACHE, TaskSpec
+from .validate import as_config, validate
 
 log = logging.getLogger("geoflow")
-LOG_NAME = "run.log"
+GEOMETRY_CACHE_SECTIONS = 20_000     # geometry kept from validation for in-process / forked tasks
 
 
 @dataclass
@@ -48,6 +54,7 @@ class RunResult:
     elapsed_s: float = 0.0
     reused_units: int = 0
     crossings: list = field(default_factory=list)             # section pairs of different reaches that cross
+    stale_files: list = field(default_factory=list)           # files in managed folders no run recorded
 
     @property
     def failed(self) -> list[str]:
@@ -58,133 +65,188 @@ class RunResult:
 class _Plan:
     cfg: Config
     inputs: Inputs
-    manifest: manifest.Manifest
-    todo: dict[str, list[str]]          # reach id -> events to compute
+    problems: dict[str, str]
+    hashes: dict
+    identity: str
+    fingerprints: tuple
     result: RunResult
+    manifest: manifest.Manifest | None = None
+    todo: dict[str, list[str]] = field(default_factory=dict)     # reach id -> events to compute
+    remove: set = field(default_factory=set)                      # files of earlier runs to delete
 
 
-def _plan(config, resume: bool) -> _Plan:
-    cfg = _as_config(config)
-    inputs = open_inputs(cfg)
-    problems = precheck_reaches(cfg, inputs)
+def _plan(cfg: Config, others: tuple, keep_going: bool) -> _Plan:
+    checked = validate(cfg, others)
+    if not keep_going:
+        checked.raise_problems()
+    if not checked.geometries:
+        checked.raise_problems()
     hashes = manifest.input_hashes(cfg)
-    previous = manifest.load_previous(cfg.run.output_dir) if resume else None
-    if resume:
-        manifest.clear_stale_temporaries(cfg.run.output_dir)
-    reuse = manifest.reusable_units(previous, cfg, hashes, safe_name) if resume else set()
-    man = manifest.Manifest.start(cfg, hashes, previous, reuse)
-    todo = {}
-    for rid in [r for r, _ in inputs.reaches] + list(inputs.unusable):
-        if rid in problems:
-            man.record_reach(rid, {"status": "failed", "error": problems[rid],
-                                   "events": {e.name: {"status": "failed", "error": problems[rid]}
-                                              for e in cfg.events}})
+    ident = manifest.identity(cfg, hashes)
+    if sum(len(g.sections) for g in checked.geometries.values()) <= GEOMETRY_CACHE_SECTIONS:
+        GEOMETRY_CACHE.update({(ident, rid): g for rid, g in checked.geometries.items()})
+    return _Plan(cfg=cfg, inputs=checked.inputs, problems=checked.problems, hashes=hashes, identity=ident,
+                 fingerprints=manifest.fingerprints(cfg), result=RunResult(config=cfg, output_dir=cfg.run.output_dir))
+
+
+def _start(p: _Plan, resume: bool) -> None:
+    """With the folder locked: decide what to reuse and remove, and start the manifest."""
+    cfg = p.cfg
+    previous = manifest.load_previous(cfg.run.output_dir)
+    reuse = manifest.reusable_units(previous, cfg, p.identity, safe_name) if resume else set()
+    keep = manifest.kept_files(previous, reuse)
+    p.remove = manifest.previous_files(previous) - keep
+    man = manifest.Manifest.start(cfg, p.hashes, p.identity, previous, reuse)
+    for rid in [r for r, _ in p.inputs.reaches] + list(p.inputs.unusable):
+        if rid in p.problems:
+            err = p.problems[rid]
+            man.record_reach(rid, {"status": "failed", "error": err,
+                                   "events": {e.name: {"status": "failed", "error": err} for e in cfg.events}})
             continue
         events = [e.name for e in cfg.events if manifest.unit_key(rid, e.name) not in reuse]
         if events:
-            todo[rid] = events
-        elif previous:
-            man.data["reaches"][rid] = previous.get("reaches", {}).get(rid, {"status": "complete"})
-    result = RunResult(config=cfg, output_dir=cfg.run.output_dir, reused_units=len(reuse))
-    return _Plan(cfg=cfg, inputs=inputs, manifest=man, todo=todo, result=result)
+            p.todo[rid] = events
+        else:
+            man.data["reaches"][rid] = (previous or {}).get("reaches", {}).get(rid, {"status": "complete"})
+    p.manifest = man
+    p.result.reused_units = len(reuse)
 
 
-class Progress:
-    """One-line progress over reach x event units on stderr, with an ETA."""
-
-    def __init__(self, total: int, enabled: bool):
-        self.total, self.done, self.enabled, self.t0 = max(total, 1), 0, enabled, time.perf_counter()
-
-    def step(self, label: str, units: int = 1) -> None:
-        self.done += units
-        if not self.enabled:
-            return
-        el = time.perf_counter() - self.t0
-        eta = el / self.done * (self.total - self.done) if self.done else 0.0
-        sys.stderr.write(f"\r[{self.done}/{self.total}] {label:<44.44} {el:7.1f} s elapsed, ETA {eta:6.1f} s")
-        if self.done >= self.total:
-            sys.stderr.write("\n")
-        sys.stderr.flush()
-
-
-def _start_logging(out_dirs: list[Path]) -> list[logging.Handler]:
-    handlers = []
-    log.setLevel(logging.INFO)
-    for d in out_dirs:
-        try:
-            d.mkdir(parents=True, exist_ok=True)
-            h = logging.FileHandler(d / LOG_NAME, mode="a", encoding="utf-8")
-        except OSError as exc:
-            raise OutputError(f"{d}: cannot create the output folder or its {LOG_NAME} ({exc.strerror or exc}); "
-                              "check [run] output_dir and its permissions") from None
-        h.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
-        log.addHandler(h)
-        handlers.append(h)
-    return handlers
+def _clear_previous(p: _Plan) -> None:
+    out = p.cfg.run.output_dir
+    protect = {Path(f).resolve() for path in p.cfg.input_files().values() for f in layout.side_files(path)}
+    removed = layout.remove_recorded(out, sorted(p.remove), protect)
+    temps = manifest.clear_stale_temporaries(out)
+    if removed or temps:
+        log.info("run %s: removed %d file(s) of an earlier run and %d temporary file(s) of a killed run",
+                 p.cfg.run.name, removed, temps)
 
 
 def run(config, workers: int = 1, scheduler: str | None = None, resume: bool = False,
-        progress: bool = False):
-    """Run every reach x event of one config (-> RunResult) or of a list of configs (-> list)."""
+        progress: bool = False, keep_going: bool = False):
+    """Run every reach x event of one config (-> RunResult) or of a list of configs (-> list).
+
+    Raises a GeoflowError (nothing written) when validation finds a problem, unless ``keep_going``:
+    then reaches that fail validation are recorded as failed and the others are computed.
+    """
     many = isinstance(config, (list, tuple))
-    plans = [_plan(c, resume) for c in (config if many else [config])]     # raises before writing
+    cfgs = [as_config(c) for c in (config if many else [config])]
+    plans = [_plan(c, tuple(o for o in cfgs if o is not c), keep_going) for c in cfgs]   # raises before writing
+    runner = engine(workers, scheduler)          # an unreachable scheduler fails here, before writing
     t0 = time.perf_counter()
-    handlers = _start_logging([p.cfg.run.output_dir for p in plans])
-    try:
-        _compute(plans, workers, scheduler, progress)
+    with contextlib.ExitStack() as stack:
+        stack.callback(runner.close)
+        locks = [stack.enter_context(FolderLock(p.cfg.run.output_dir, p.cfg.run.name)) for p in plans]
+        stack.enter_context(_logging([p.cfg.run.output_dir for p in plans]))
+        for p, lock in zip(plans, locks):
+            if lock.previous_owner:
+                log.warning("run %s: took over the lock left by a run that ended without releasing it (%s)",
+                            p.cfg.run.name, lock.previous_owner)
+            _start(p, resume)
+            _clear_previous(p)
+        _compute(plans, runner, progress)
         for p in plans:
             p.result.elapsed_s = time.perf_counter() - t0
-            assemble.finish(p.cfg, p.inputs, p.manifest, p.result)
-            p.result.crossings = list(p.manifest.data.get("sections_crossing_other_reaches", []))
-            for line in p.result.crossings:
-                log.warning("%s; check the sections near the confluence", line)
-            log.info("run %s finished in %.1f s: %d reach(es) failed", p.cfg.run.name, p.result.elapsed_s,
-                     len(p.result.failed))
-    finally:
-        for h in handlers:
-            log.removeHandler(h)
-            h.close()
+            _finish(p)
     results = [p.result for p in plans]
     return results if many else results[0]
 
 
-def _compute(plans: list[_Plan], workers: int, scheduler: str | None, progress: bool) -> None:
-    """Run every planned reach; a reach with a junction boundary starts once the reach it joins is done."""
-    total = sum(len(ev) for p in plans for ev in p.todo.values())
-    bar = Progress(total, progress)
-    submit, as_completed, close = engine(workers, scheduler)
+def _finish(p: _Plan) -> None:
     try:
-        waiting = []
-        for p in plans:
+        assemble.finish(p.cfg, p.inputs, p.manifest, p.result)
+    except Exception as exc:
+        if not isinstance(exc, GeoflowError) and not is_disk_full(exc):
+            raise
+        err = exc if isinstance(exc, GeoflowError) else write_error(p.cfg.run.output_dir, exc)
+        log.error("run %s: assembling the run-level outputs failed - %s", p.cfg.run.name, err)
+        p.manifest.data["error"] = f"assembling the run-level outputs failed: {err}"
+        with contextlib.suppress(GeoflowError):        # best effort: the disk may still be full
             p.manifest.save()
-            log.info("run %s: %d reach(es) to compute, %d unit(s) reused (config %s, caution: %s)",
-                     p.cfg.run.name, len(p.todo), p.result.reused_units, p.cfg.path, CAUTION)
-            for rid, entry in p.manifest.data["reaches"].items():
-                if entry.get("status") == "failed":
-                    log.error("reach %s: failed the pre-check - %s", rid, entry.get("error"))
-            deps = junction_order(p.cfg, list(p.todo))
-            waiting.extend((p, rid, deps.get(rid) if deps.get(rid) in p.todo else None) for rid in p.todo)
-        futures, finished = {}, set()
-        while waiting or futures:
-            ready = [w for w in waiting if w[2] is None or (id(w[0]), w[2]) in finished]
-            waiting = [w for w in waiting if w not in ready]
-            for p, rid, _ in ready:
-                futures[submit(str(p.cfg.path), p.cfg.sha256, rid, p.todo[rid])] = (p, rid)
-            if not futures:
-                break
-            fut = next(iter(as_completed(list(futures))))
-            p, rid = futures.pop(fut)
-            _record(p, rid, fut.result())
-            finished.add((id(p), rid))
-            bar.step(f"{p.cfg.run.name}/{rid}: {p.manifest.data['reaches'][rid]['status']}", len(p.todo[rid]))
+        raise err from None
+    p.result.crossings = list(p.manifest.data.get("sections_crossing_other_reaches", []))
+    for line in p.result.crossings:
+        log.warning("%s; check the sections near the confluence", line)
+    p.result.stale_files = list(p.manifest.data.get("stale_files", []))
+    if p.result.stale_files:
+        log.warning("run %s: %d file(s) in the output folder were not written by this run (listed in "
+                    "manifest.json as stale_files), e.g. %s", p.cfg.run.name, len(p.result.stale_files),
+                    p.result.stale_files[0])
+    log.info("run %s finished in %.1f s: %d reach(es) failed", p.cfg.run.name, p.result.elapsed_s,
+             len(p.result.failed))
+
+
+@contextlib.contextmanager
+def _logging(out_dirs: list[Path]):
+    handlers = []
+    log.setLevel(logging.INFO)
+    try:
+        for d in out_dirs:
+            try:
+                d.mkdir(parents=True, exist_ok=True)
+                h = logging.FileHandler(d / layout.LOG_NAME, mode="a", encoding="utf-8")
+            except OSError as exc:
+                raise write_error(d / layout.LOG_NAME, exc) from None
+            h.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+            log.addHandler(h)
+            handlers.append(h)
+        yield handlers
     finally:
-        close()
+        for h in handlers:
+            log.removeHandler(h)
+            h.close()
+
+
+def _compute(plans: list[_Plan], runner, progress: bool) -> None:
+    """Run every planned reach; a reach with a junction boundary starts once the reach it joins is done."""
+    bar = Progress(sum(len(ev) for p in plans for ev in p.todo.values()), progress)
+    waiting = []
+    for p in plans:
+        p.manifest.save()
+        log.info("run %s: %d reach(es) to compute, %d unit(s) reused (config %s, caution: %s)",
+                 p.cfg.run.name, len(p.todo), p.result.reused_units, p.cfg.path, CAUTION)
+        for rid, entry in p.manifest.data["reaches"].items():
+            if entry.get("status") == "failed":
+                log.error("reach %s: failed validation - %s", rid, entry.get("error"))
+        deps = junction_order(p.cfg, list(p.todo))
+        waiting.extend((p, rid, deps.get(rid) if deps.get(rid) in p.todo else None) for rid in p.todo)
+    handles: dict = {}
+    finished: set = set()
+    while waiting or handles:
+        ready = [w for w in waiting if w[2] is None or (id(w[0]), w[2]) in finished]
+        waiting = [w for w in waiting if w not in ready]
+        for p, rid, _ in ready:
+            handles[runner.submit(_spec(p, rid))] = (p, rid)
+        if not handles:
+            break
+        h = runner.wait(list(handles))
+        p, rid = handles.pop(h)
+        _record(p, rid, runner.result(h))
+        finished.add((id(p), rid))
+        bar.step(f"{p.cfg.run.name}/{rid}: {p.manifest.data['reaches'][rid]['status']}", len(p.todo[rid]))
+
+
+def _spec(p: _Plan, rid: str) -> TaskSpec:
+    down, _ = p.cfg.boundary.for_reach(rid)
+    complete = ()
+    if down.type == "junction":
+        units = p.manifest.data["units"]
+        complete = tuple(e.name for e in p.cfg.events
+                         if units.get(manifest.unit_key(down.reach, e.name), {}).get("status") == "complete")
+    return TaskSpec(config_path=str(p.cfg.path), config_sha256=p.cfg.sha256, identity=p.identity,
+                    fingerprints=p.fingerprints, reach_id=rid, events=tuple(p.todo[rid]), junction_events=complete)
 
 
 def _record(p: _Plan, rid: str, info: dict) -> None:
+    for ev in p.todo[rid]:
+        info.setdefault("events", {}).setdefault(ev, {"status": "failed", "error": info.get("error")})
     p.manifest.record_reach(rid, info)
-    p.manifest.save()
+    try:
+        p.manifest.save()
+    except OutputError as exc:
+        log.error("run %s: %s", p.cfg.run.name, exc)
+        raise
     level = logging.INFO if info["status"] == "complete" else logging.ERROR
-    log.log(level, "reach %s: %s%s", rid, info["status"], f" - {info['error']}" if info["error"] else "")
+    log.log(level, "reach %s: %s%s", rid, info["status"], f" - {info['error']}" if info.get("error") else "")
     if "traceback" in info:
         log.error("%s", info["traceback"])

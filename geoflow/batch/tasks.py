@@ -1,35 +1,55 @@
 """The unit of work a worker runs: one reach of one config, for a list of events.
 
-A task receives the config path (and its expected hash) and a reach id, never arrays, and
-opens its own inputs, so it runs the same in this process, in a local process pool or on a
-Dask worker (which must see the same file system). It writes the reach's rasters, report and
-part files (atomically) and returns a small dict of plain values for the manifest.
+A task receives a :class:`TaskSpec` (the config path, its hash, the run's input identity, cheap
+fingerprints of the input files, a reach id and event names: plain values, never arrays) and
+opens its own inputs, so it runs the same in this process, in a local process pool or on a Dask
+worker (which must see the same file system). It writes the reach's rasters, report and part
+files (atomically) and returns a small dict of plain values for the manifest. Opened inputs are
+cached per process, keyed on the input identity, so an edited input is never served from cache.
 """
 from __future__ import annotations
 
 import functools
 import time
 import traceback
+from dataclasses import dataclass
 from pathlib import Path
 
-import geopandas as gpd
 import numpy as np
 import pandas as pd
 
-from .. import outputs, report
+from .. import outputs
 from ..config import Config, load_config
 from ..constants import CAUTION
-from ..errors import ConfigError, GeoflowError, HydraulicsError
-from ..mapping import VelocityInputs, write_reach_maps
+from ..errors import (ConfigError, GeoflowError, HydraulicsError, InputDataError, is_disk_full, nearly_full,
+                      write_error)
 from ..naming import safe_name
+from ..records import ReachGeometry
 from ..roughness import composite_n_by_part
 from . import reach
 from .inputs import Inputs, open_inputs
+from .layout import relative_name
 from .manifest import part_paths
+
+#: geometry built while validating, reused by in-process (and forked) tasks: {(identity, reach id): geometry}
+GEOMETRY_CACHE: dict[tuple[str, str], ReachGeometry] = {}
+
+
+@dataclass(frozen=True)
+class TaskSpec:
+    """Everything a reach task needs, as plain values."""
+
+    config_path: str
+    config_sha256: str
+    identity: str                                  # manifest.identity(): config + input contents + version
+    fingerprints: tuple                            # ((path, size, mtime_ns), ...) of the inputs at planning
+    reach_id: str
+    events: tuple[str, ...]
+    junction_events: tuple[str, ...] = ()          # events of the receiving reach complete in this run
 
 
 @functools.lru_cache(maxsize=4)
-def _config(path: str, sha256: str) -> Config:
+def _config(path: str, sha256: str, identity: str) -> Config:
     cfg = load_config(path)
     if cfg.sha256 != sha256:
         raise ConfigError(f"{path}: the config changed while the run was going on; run again")
@@ -37,55 +57,84 @@ def _config(path: str, sha256: str) -> Config:
 
 
 @functools.lru_cache(maxsize=4)
-def _inputs(path: str, sha256: str) -> Inputs:
-    return open_inputs(_config(path, sha256))
+def _inputs(path: str, sha256: str, identity: str) -> Inputs:
+    return open_inputs(_config(path, sha256, identity))
 
 
-def compute_reach(config_path: str, config_sha256: str, reach_id: str, events: list[str]) -> dict:
+def _check_unchanged(spec: TaskSpec) -> None:
+    for path, size, mtime in spec.fingerprints:
+        try:
+            st = Path(path).stat()
+        except OSError:
+            raise InputDataError(f"{path}: input file disappeared while the run was going on; restore it and "
+                                 "run again") from None
+        if (st.st_size, st.st_mtime_ns) != (size, mtime):
+            raise InputDataError(f"{path}: input file changed while the run was going on; run again")
+
+
+def compute_reach(spec: TaskSpec) -> dict:
     """Compute and write one reach for the given events; never raises for a GeoflowError."""
     t0 = time.perf_counter()
-    info = {"reach_id": reach_id, "status": "failed", "error": None, "events": {}, "warnings": [],
+    info = {"reach_id": spec.reach_id, "status": "failed", "error": None, "events": {}, "warnings": [],
             "sections": 0, "timings_s": {}}
+    out = None
     try:
-        cfg = _config(config_path, config_sha256)
-        inputs = _inputs(config_path, config_sha256)
-        geom = reach.build_geometry(cfg, inputs, reach_id, dict(inputs.reaches)[reach_id])
-        info["sections"], info["warnings"] = len(geom.sections), list(geom.warnings)
-        _write_sections_part(cfg, geom)
-        t1 = time.perf_counter()
-        todo = [e for e in cfg.events if e.name in events]
-        profiles = reach.solve_reach(cfg, geom, todo, _junction_wse(cfg, inputs, geom, todo))
-        info["timings_s"]["hydraulics"] = time.perf_counter() - t1
-        for ev in todo:
-            info["events"][ev.name] = _compute_event(cfg, inputs, geom, profiles[ev.name], ev)
-        _write_reach_report(cfg, geom)
-        info["timings_s"].update(sections=t1 - t0, total=time.perf_counter() - t0)
-        failed = [e for e, u in info["events"].items() if u["status"] != "complete"]
-        info["status"] = "failed" if failed else "complete"
-        info["error"] = "; ".join(info["events"][e]["error"] for e in failed) or None
+        _check_unchanged(spec)
+        cfg = _config(spec.config_path, spec.config_sha256, spec.identity)
+        out = cfg.run.output_dir
+        inputs = _inputs(spec.config_path, spec.config_sha256, spec.identity)
+        _compute(cfg, inputs, spec, info, t0)
     except GeoflowError as exc:
         info["error"] = str(exc)
-    except Exception as exc:  # a bug: keep the batch going, keep the evidence
-        info["error"] = f"internal error ({type(exc).__name__}: {exc}); please report it with run.log"
-        info["traceback"] = traceback.format_exc()
-    for ev in events:
+    except Exception as exc:  # disk full in a library's own words, or a bug: keep the batch going
+        if is_disk_full(exc) or (out is not None and nearly_full(out)):
+            info["error"] = str(write_error(f"reach {spec.reach_id!r} outputs", exc))
+        else:
+            info["error"] = f"internal error ({type(exc).__name__}: {exc}); please report it with run.log"
+            info["traceback"] = traceback.format_exc()
+    for ev in spec.events:
         info["events"].setdefault(ev, {"status": "failed", "error": info["error"]})
     return info
 
 
-def _junction_wse(cfg: Config, inputs, geom, events) -> dict | None:
-    """WSE per event where this reach joins the reach named by its junction boundary (or None)."""
+def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float) -> None:
+    rid = spec.reach_id
+    geom = GEOMETRY_CACHE.get((spec.identity, rid)) or reach.build_geometry(cfg, inputs, rid, dict(inputs.reaches)[rid])
+    info["sections"], info["warnings"] = len(geom.sections), list(geom.warnings)
+    info["files"] = [relative_name(cfg.run.output_dir, _write_sections_part(cfg, inputs, geom))]
+    t1 = time.perf_counter()
+    todo = [e for e in cfg.events if e.name in spec.events]
+    profiles = reach.solve_reach(cfg, geom, todo, _junction_wse(cfg, inputs, geom, todo, spec.junction_events))
+    info["timings_s"]["hydraulics"] = time.perf_counter() - t1
+    for ev in todo:
+        info["events"][ev.name] = _compute_event(cfg, inputs, geom, profiles[ev.name], ev)
+    info["files"] += [relative_name(cfg.run.output_dir, f) for f in _write_reach_report(cfg, geom)]
+    info["timings_s"].update(sections=t1 - t0, total=time.perf_counter() - t0)
+    failed = [e for e, u in info["events"].items() if u["status"] != "complete"]
+    info["status"] = "failed" if failed else "complete"
+    info["error"] = "; ".join(info["events"][e]["error"] for e in failed) or None
+
+
+def _junction_wse(cfg: Config, inputs, geom, events, complete: tuple[str, ...]) -> dict | None:
+    """WSE per event where this reach joins the reach named by its junction boundary (or None).
+
+    Only results of the receiving reach that this run computed (or reused after proving them
+    current) are read: ``complete`` lists those events.
+    """
     down, _ = cfg.boundary.for_reach(geom.reach_id)
     if down.type != "junction":
         return None
-    prof = read_profile_parts(cfg, down.reach)
+    missing = [e.name for e in events if e.name not in complete]
+    if missing:
+        raise HydraulicsError(f"reach {geom.reach_id!r}: junction reach {down.reach!r} has no result for event(s) "
+                              f"{', '.join(missing)} in this run (it failed); fix that reach first")
+    prof = read_profile_parts(cfg, down.reach, [e.name for e in events])
     if prof is None:
         raise HydraulicsError(f"reach {geom.reach_id!r}: junction reach {down.reach!r} has no results; it failed "
                               "or was not computed, so this reach cannot be either")
-    lines = dict(inputs.reaches)
     try:
-        return reach.junction_wse_from(lines[down.reach], prof, geom.centreline, [e.name for e in events],
-                                          down.reach)
+        return reach.junction_wse_from(dict(inputs.reaches)[down.reach], prof, geom.centreline,
+                                       [e.name for e in events], down.reach)
     except HydraulicsError as exc:
         raise HydraulicsError(f"reach {geom.reach_id!r}: {exc}") from None
 
@@ -99,18 +148,21 @@ def _compute_event(cfg: Config, inputs, geom, prof, ev) -> dict:
         rows = outputs.profile_rows(geom, ev.name, prof)
         files = _write_maps(cfg, inputs, geom, ev.name, prof)
         parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(ev.name))
-        outputs.write_profile_csv(parts["profile"], rows)
+        files.append(outputs.write_profile_csv(parts["profile"], rows))
         t2 = time.perf_counter()
     except GeoflowError as exc:
         return {"status": "failed", "error": str(exc)}
     flagged = int((rows["flags"].str.len() > 0).sum())
-    return {"status": "complete", "error": None, "files": [str(f) for f in files],
+    return {"status": "complete", "error": None, "files": [relative_name(cfg.run.output_dir, f) for f in files],
             "timings_s": {"mapping_and_writing": t2 - t1},
             "max_depth_m": float(np.nanmax(rows["depth_m"])), "flagged_sections": flagged}
 
 
 def _write_maps(cfg: Config, inputs, geom, event: str, prof) -> list[Path]:
     """Rasters (block-wise COGs) and the extent part of one reach and event."""
+    import geopandas as gpd
+
+    from ..mapping import write_reach_maps
     kinds = [k for k in ("wse", "depth", "velocity") if k in cfg.mapping.outputs]
     parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(event))
     if not kinds and "extent" not in cfg.mapping.outputs:
@@ -126,8 +178,9 @@ def _write_maps(cfg: Config, inputs, geom, event: str, prof) -> list[Path]:
     return list(paths.values()) + [outputs.write_extent_gpkg(parts["extent"], ext)]
 
 
-def _velocity_inputs(cfg: Config, inputs, prof) -> VelocityInputs:
+def _velocity_inputs(cfg: Config, inputs, prof):
     """Velocity raster inputs: the profile's friction slope and each land-cover polygon's base n."""
+    from ..mapping import VelocityInputs
     table = cfg.roughness.n_table()
     fallback = np.nan if cfg.roughness.default_n is None else cfg.roughness.default_n
     n = np.array([table.get(str(c), fallback) for c in inputs.cover.classes], dtype=float)
@@ -135,20 +188,19 @@ def _velocity_inputs(cfg: Config, inputs, prof) -> VelocityInputs:
                           landcover=(np.asarray(inputs.cover.geometries), n), default_n=cfg.roughness.default_n)
 
 
-def _write_sections_part(cfg: Config, geom) -> None:
+def _write_sections_part(cfg: Config, inputs: Inputs, geom) -> Path:
+    import geopandas as gpd
     rows = outputs.section_rows(geom, composite_n_by_part)
-    gdf = gpd.GeoDataFrame(rows, geometry="geometry", crs=_crs_wkt(cfg))
-    outputs.write_sections_gpkg(part_paths(cfg.run.output_dir, safe_name(geom.reach_id))["sections"], gdf)
+    gdf = gpd.GeoDataFrame(rows, geometry="geometry", crs=inputs.dem.crs.to_wkt())
+    return outputs.write_sections_gpkg(part_paths(cfg.run.output_dir, safe_name(geom.reach_id))["sections"], gdf)
 
 
-def _crs_wkt(cfg: Config) -> str:
-    return _inputs(str(cfg.path), cfg.sha256).dem.crs.to_wkt()
-
-
-def read_profile_parts(cfg: Config, reach_id: str) -> pd.DataFrame | None:
-    """All events' profile rows of a reach found on disk, in config event order."""
+def read_profile_parts(cfg: Config, reach_id: str, events: list[str] | None = None) -> pd.DataFrame | None:
+    """Profile rows of a reach found on disk for ``events`` (default: all), in config event order."""
     frames = []
     for ev in cfg.events:
+        if events is not None and ev.name not in events:
+            continue
         p = part_paths(cfg.run.output_dir, safe_name(reach_id), safe_name(ev.name))["profile"]
         if p.is_file():
             frames.append(pd.read_csv(p, keep_default_na=False, na_values=[""],
@@ -156,13 +208,14 @@ def read_profile_parts(cfg: Config, reach_id: str) -> pd.DataFrame | None:
     return pd.concat(frames, ignore_index=True) if frames else None
 
 
-def _write_reach_report(cfg: Config, geom) -> None:
+def _write_reach_report(cfg: Config, geom) -> list[Path]:
     if "report" not in cfg.mapping.outputs:
-        return
+        return []
     prof = read_profile_parts(cfg, geom.reach_id)
     if prof is None:
-        return
+        return []
+    from .. import report
     prof["flags"] = prof["flags"].fillna("")
     events = [e.name for e in cfg.events if e.name in set(prof["event"])]
-    report.write_report(cfg.run.output_dir / "report" / f"{safe_name(geom.reach_id)}.html", geom.reach_id, geom,
-                        prof, events, caution=CAUTION)
+    path = cfg.run.output_dir / "report" / f"{safe_name(geom.reach_id)}.html"
+    return [report.write_report(path, geom.reach_id, geom, prof, events, caution=CAUTION)]

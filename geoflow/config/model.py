@@ -152,3 +152,15 @@ class Config:
     boundary: BoundaryConfig
     hydraulics: HydraulicsConfig = HydraulicsConfig()
     mapping: MappingConfig = MappingConfig()
+
+    def input_files(self) -> dict[str, Path]:
+        """Every input file this config names, by its TOML key (the config file itself included).
+
+        The one registry of inputs: the manifest's input identity, ``--resume`` and every cache
+        key on it, and no output may overwrite any of them. A feature that adds an input file
+        adds it here.
+        """
+        files = {"config": self.path, "[terrain] dem": self.terrain.dem,
+                 "[reaches] centrelines": self.reaches.centrelines, "[roughness] landcover": self.roughness.landcover,
+                 "[roughness] table": self.roughness.table, "[sections] lines": self.sections.lines}
+        return {k: Path(p) for k, p in files.items() if p is not None}

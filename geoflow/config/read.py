@@ -11,7 +11,8 @@ from types import MappingProxyType
 from typing import Any, Mapping
 
 from ..errors import GeoflowError
-from ..roughness.tables import read_class_table, reference_entry
+from ..constants import MAX_NAME_LENGTH
+from ..roughness.tables import N_RANGE, read_class_table, reference_entry
 from .model import (
     BOUNDARY_TYPES,
     FRICTION_SLOPE_METHODS,
@@ -131,6 +132,8 @@ def _read_run(r: _Reader, doc: dict) -> RunConfig | None:
     name = r.value(t, "name", "[run]", "string", required=True)
     if name is not None and not SAFE_NAME.match(name):
         r.problem("[run] name", f"{name!r} must be letters, digits, '_', '-' or '.'")
+    elif name is not None and len(name) > MAX_NAME_LENGTH:
+        r.problem("[run] name", f"is {len(name)} characters long; keep it to {MAX_NAME_LENGTH}")
     out = r.path(t, "output_dir", "[run]")
     if out is not None and out.exists() and not out.is_dir():
         r.problem("[run] output_dir", f"{out} exists and is not a folder; choose a folder name")
@@ -205,8 +208,9 @@ def _read_class(r: _Reader, name: str, t: Any) -> RoughnessClass | None:
     vals = {k: r.value(t, k, where, "number positive", required=(k == "n" and ref is None), default=ref and ref[k])
             for k in ("n", "n_low", "n_high")}
     for k, v in vals.items():
-        if v is not None and not 0.005 <= v <= 1.0:
-            r.problem(f"{where} {k}", f"Manning's n = {v:g} is outside 0.005-1.0; check the units (s/m^(1/3))")
+        if v is not None and not N_RANGE[0] <= v <= N_RANGE[1]:
+            r.problem(f"{where} {k}", f"Manning's n = {v:g} is outside {N_RANGE[0]}-{N_RANGE[1]}; check the units "
+                                      "(s/m^(1/3))")
             return None
     n, lo, hi = vals["n"], vals["n_low"], vals["n_high"]
     if n is None:
@@ -244,8 +248,8 @@ def _read_n_law(r: _Reader, v: Any, where: str) -> tuple[tuple[float, float], ..
     if xs[0] < 0 or any(b <= a for a, b in zip(xs, xs[1:])):
         r.problem(where, "the first values (depth in m or discharge in m3/s) must be >= 0 and strictly increasing")
         return ()
-    if any(not 0.005 <= x <= 1.0 for x in ns):
-        r.problem(where, "Manning's n values must lie in 0.005-1.0")
+    if any(not N_RANGE[0] <= x <= N_RANGE[1] for x in ns):
+        r.problem(where, f"Manning's n values must lie in {N_RANGE[0]}-{N_RANGE[1]}")
         return ()
     return tuple(zip(xs, ns))
 
@@ -285,7 +289,7 @@ def _read_csv_classes(r: _Reader, path: Path) -> dict[str, RoughnessClass]:
 def _read_discharge(r: _Reader, v: Any, where: str) -> float | Mapping[str, float] | None:
     if isinstance(v, dict):
         out = {}
-        for reach, q in v.items():
+        for reach in v:
             qv = r.value(v, reach, where, "number positive")
             if qv is not None:
                 out[str(reach)] = qv
@@ -330,7 +334,11 @@ def _read_events(r: _Reader, doc: dict) -> tuple[Event, ...]:
         name = r.value(t, "name", where, "string", required=True)
         if name is not None:
             where = f"[[events]] {name!r}"
-            if not SAFE_NAME.match(name):
+            if len(name) > MAX_NAME_LENGTH:
+                where = f"[[events]][{i}]"
+                r.problem(f"{where} name", f"is {len(name)} characters long; event names become file names, "
+                                           f"keep them to {MAX_NAME_LENGTH}")
+            elif not SAFE_NAME.match(name):
                 r.problem(f"{where} name", "use letters, digits, '_', '-' or '.' (it becomes a file name)")
             if name in seen:
                 r.problem(f"{where} name", "duplicate event name; names must be unique")
@@ -376,6 +384,10 @@ def _read_bspec(r: _Reader, v: Any, where: str) -> BoundarySpec | None:
         return None
     if any(b <= a for a, b in zip(q, q[1:])) or q[0] < 0:
         r.problem(f"{where} discharge", "rating discharges must be >= 0 and strictly increasing")
+        return None
+    if any(b <= a for a, b in zip(h, h[1:])):
+        r.problem(f"{where} stage", "rating stages must rise with discharge (strictly increasing); a level that "
+                                    "falls as the flow grows is not a rating - check the order of the two lists")
         return None
     return BoundarySpec(type=btype, discharge=tuple(map(float, q)), stage=tuple(map(float, h)))
 

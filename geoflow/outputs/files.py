@@ -19,7 +19,7 @@ import rasterio.shutil
 from rasterio.io import MemoryFile
 
 from ..constants import NODATA
-from ..errors import OutputError
+from ..errors import GeoflowError, OutputError, is_disk_full, write_error
 from .tables import EXTENT_COLUMNS, PROFILE_COLUMNS, SECTION_COLUMNS
 
 # printf formats per profile column; other float columns use "%.6g".
@@ -40,7 +40,7 @@ def atomic_path(path):
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise OutputError(f"{path}: cannot create the output folder ({exc}); check output_dir in [run]") from None
+        raise write_error(path.parent, exc) from None
     if path.is_dir():
         raise OutputError(f"{path}: a folder is in the way of this output file; move it or change output_dir")
     tmp = path.with_name(f".{path.stem}.tmp-{os.getpid()}{path.suffix}")
@@ -51,8 +51,10 @@ def atomic_path(path):
         for leftover in (tmp, *tmp.parent.glob(tmp.name + "-*")):     # incl. SQLite journals
             with contextlib.suppress(OSError):
                 leftover.unlink()
-        if isinstance(exc, OSError) and not isinstance(exc, OutputError):
-            raise OutputError(f"{path}: cannot write ({exc}); check disk space and permissions") from None
+        if isinstance(exc, GeoflowError):
+            raise
+        if isinstance(exc, OSError) or is_disk_full(exc):
+            raise write_error(path, exc) from None
         raise
 
 
@@ -80,7 +82,7 @@ def write_raster(path, array, transform, crs, nodata: float = NODATA, blocksize:
                 with mem.open() as src:
                     rasterio.shutil.copy(src, str(tmp), driver="COG", **options)
         except rasterio.errors.RasterioError as exc:
-            raise OutputError(f"{path}: cannot write GeoTIFF ({exc}); check disk space and permissions") from None
+            raise write_error(path, exc) from None
     return path
 
 
@@ -149,7 +151,7 @@ def block_raster_writer(path, width: int, height: int, transform, crs, nodata: f
             with rasterio.open(build) as src:
                 rasterio.shutil.copy(src, str(tmp), driver="COG", **cog_options(width, height, blocksize))
         except rasterio.errors.RasterioError as exc:
-            raise OutputError(f"{path}: cannot write GeoTIFF ({exc}); check disk space and permissions") from None
+            raise write_error(path, exc) from None
         finally:
             with contextlib.suppress(OSError):
                 build.unlink()
@@ -207,7 +209,7 @@ def _write_gpkg(path, gdf, layer: str, required, promote_to_multi: bool) -> Path
         try:
             out.to_file(tmp, layer=layer, driver="GPKG", engine="pyogrio", promote_to_multi=promote_to_multi)
         except Exception as exc:          # pyogrio/GDAL raise several types
-            raise OutputError(f"{path}: cannot write GeoPackage layer {layer!r} ({exc})") from None
+            raise write_error(f"{path} (layer {layer!r})", exc) from None
     return path
 
 

@@ -70,8 +70,9 @@ def _single_crossings(rid: str, centreline: LineString, geoms: np.ndarray, where
     for i in np.flatnonzero(~is_point):
         g = inter[i]
         count = 0 if g.is_empty else shapely.get_num_geometries(g)
-        what = "runs along" if shapely.length(g) > 0 else f"crosses {count} times"
-        raise GeometryError(f"{where}: section line {i} of reach {rid} {what} the centreline; each line must cross "
+        what = ("runs along the centreline" if shapely.length(g) > 0 else
+                "does not cross the centreline" if count == 0 else f"crosses the centreline {count} times")
+        raise GeometryError(f"{where}: section line {i} of reach {rid} {what}; each line must cross "
                             "it exactly once - redraw that line")
     at = shapely.line_locate_point(geoms, inter)
     ends = np.flatnonzero((at <= 1e-9) | (at >= shapely.length(geoms) - 1e-9))

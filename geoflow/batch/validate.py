@@ -1,0 +1,160 @@
+"""Validation of a config and its inputs: what ``geoflow check`` reports and ``geoflow run`` does first.
+
+``run`` calls the same :func:`validate` before it writes anything, so whatever ``check`` rejects,
+``run`` rejects the same way (one line, exit status 2, nothing written), and the other way round.
+
+Steps, each problem collected rather than raised at once where that makes sense:
+
+1. the config (``load_config``), the inputs opened and cross-checked (land-cover classes and the
+   channel class, reach ids named by events and per-reach tables, junctions, ``[mapping]
+   cell_size`` against the DEM);
+2. every reach: its id (path-safe, not too long, unique once made path-safe), its centreline
+   inside the DEM and over DEM data, flow changes within its length;
+3. every reach's sections cut and given Manning's n (what the run will use), and stage / rating
+   boundaries checked against the ground of the end sections;
+4. no output may overwrite an input (:func:`geoflow.batch.layout.check_inputs_not_outputs`).
+
+Reach-level problems (2-3) are returned by reach; :func:`check` and ``run`` raise them as one
+line unless the caller keeps going past bad reaches (``run(..., keep_going=True)``).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import shapely
+from shapely.geometry import box
+
+from ..config import Config, load_config
+from ..config.crosscheck import (boundary_level_problems, discharge_at_ends, raise_problems,
+                                 reach_length_problems)
+from ..errors import GeoflowError, GeometryError, InputDataError
+from ..naming import safe_name
+from ..records import ReachGeometry
+from . import reach
+from .inputs import Inputs, open_inputs
+from .layout import check_inputs_not_outputs
+
+MAX_LISTED = 3      # problems spelt out in the one-line message; the rest are counted
+
+
+@dataclass
+class CheckResult:
+    """What :func:`check` found: the config, its opened inputs, each reach's geometry, problems by reach."""
+
+    config: Config
+    inputs: Inputs
+    geometries: dict[str, ReachGeometry]
+    problems: dict[str, str] = field(default_factory=dict)
+
+    def summary_lines(self) -> list[str]:
+        cfg = self.config
+        lines = [f"config {cfg.path}: OK", f"DEM {cfg.terrain.dem} ({self.inputs.dem.crs.to_string()}, "
+                 f"{self.inputs.dem.cell_size:g} m cells)",
+                 f"{len(self.geometries) + len(self.problems)} reach(es), {len(cfg.events)} event(s): "
+                 + ", ".join(e.name for e in cfg.events)]
+        for rid, g in self.geometries.items():
+            flagged = sum(1 for s in g.sections if s.flags)
+            lines.append(f"  reach {rid}: {g.sections[-1].chainage:.0f} m, {len(g.sections)} sections, "
+                         f"{flagged} flagged")
+            lines.extend(f"    warning: {w}" for w in g.warnings)
+        lines.extend(f"  reach {rid}: PROBLEM: {msg}" for rid, msg in self.problems.items())
+        return lines
+
+    def raise_problems(self) -> None:
+        """Raise the reach problems as one GeometryError line (first few in full, the rest counted)."""
+        if not self.problems:
+            return
+        msgs = list(self.problems.values())
+        head = "; ".join(msgs[:MAX_LISTED])
+        more = f" (and {len(msgs) - MAX_LISTED} more reach(es); `geoflow check` lists them all)" \
+            if len(msgs) > MAX_LISTED else ""
+        raise GeometryError(head + more)
+
+
+def as_config(config: str | Path | Config) -> Config:
+    return config if isinstance(config, Config) else load_config(config)
+
+
+def validate(config: str | Path | Config, others: tuple = ()) -> CheckResult:
+    """Validate a config and its inputs (see the module notes); reach problems are returned, not raised.
+
+    ``others``: configs run together with this one (their inputs are protected from its outputs).
+    """
+    cfg = as_config(config)
+    inputs = open_inputs(cfg)
+    problems = reach_problems(cfg, inputs)
+    geoms = {}
+    for rid, line in inputs.reaches:
+        if rid in problems:
+            continue
+        try:
+            geom = reach.build_geometry(cfg, inputs, rid, line)
+        except GeoflowError as exc:
+            problems[rid] = str(exc)
+            continue
+        level = boundary_level_problems(cfg, rid, _end_ground(geom), _end_discharges(cfg, rid, geom))
+        if level:
+            problems[rid] = f"{cfg.path}: " + "; ".join(level)
+        else:
+            geoms[rid] = geom
+    check_inputs_not_outputs(cfg, tuple(others))
+    order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)
+    problems = {rid: problems[rid] for rid in order if rid in problems}
+    return CheckResult(config=cfg, inputs=inputs, geometries=geoms, problems=problems)
+
+
+def check(config: str | Path | Config) -> CheckResult:
+    """Validate config and inputs and cut every reach's sections; compute and write nothing.
+
+    Raises a GeoflowError (one line) for any problem, reach problems included.
+    """
+    result = validate(config)
+    result.raise_problems()
+    return result
+
+
+def reach_problems(cfg: Config, inputs: Inputs) -> dict[str, str]:
+    """Cheap per-reach checks -> {reach_id: problem}; config-level problems raise a ConfigError."""
+    names = [safe_name(r) for r, _ in inputs.reaches]
+    if len(set(names)) != len(names):
+        dup = sorted({r for r, n in zip((r for r, _ in inputs.reaches), names) if names.count(n) > 1})
+        raise InputDataError(f"{cfg.reaches.centrelines}: reach ids {', '.join(dup)} become the same file name "
+                             "once made path-safe; give them ids that differ in letters or digits")
+    extent = box(*inputs.dem.bounds)
+    problems = dict(inputs.unusable)
+    no_data = []
+    for rid, line in inputs.reaches:
+        if not shapely.contains(extent, line):
+            problems[rid] = (f"reach {rid!r}: centreline in {cfg.reaches.centrelines.name} runs outside the DEM "
+                             f"{cfg.terrain.dem.name}; trim the line to the DEM or use a DEM that covers it")
+        elif not np.isfinite(_ground_under(line, inputs.dem)).any():
+            no_data.append(rid)
+            problems[rid] = (f"reach {rid!r}: the DEM {cfg.terrain.dem.name} has no data under its centreline "
+                             "(nodata there); use a DEM that covers the reach")
+    if no_data and len(no_data) == len(inputs.reaches):
+        raise InputDataError(f"{cfg.terrain.dem}: the DEM has no data under any centreline (is it all nodata, or "
+                             "in another place than the centrelines?); check [terrain] dem")
+    lengths = {rid: float(line.length) for rid, line in inputs.reaches}
+    raise_problems(cfg, reach_length_problems(cfg, lengths))
+    return problems
+
+
+def _ground_under(line, dem, max_points: int = 2000) -> np.ndarray:
+    """DEM ground (m, NaN where nodata) at points about one cell apart along ``line``."""
+    count = int(min(max(line.length / dem.cell_size, 2), max_points))
+    pts = shapely.get_coordinates(shapely.line_interpolate_point(line, np.linspace(0, line.length, count)))
+    return dem.sample(pts[:, 0], pts[:, 1])
+
+
+def _end_ground(geom: ReachGeometry) -> dict[str, tuple[float, float]]:
+    first, last = geom.sections[0], geom.sections[-1]
+    return {"upstream": (float(np.min(first.elevation)), float(np.max(first.elevation))),
+            "downstream": (float(np.min(last.elevation)), float(np.max(last.elevation)))}
+
+
+def _end_discharges(cfg: Config, rid: str, geom: ReachGeometry) -> dict[str, np.ndarray]:
+    length = geom.sections[-1].chainage
+    q = np.array([discharge_at_ends(ev, rid, length) for ev in cfg.events], dtype=float).reshape(-1, 2)
+    return {"upstream": q[:, 0], "downstream": q[:, 1]}
