@@ -1,11 +1,12 @@
 # Two entry points, each works on a fresh machine with python3 (>= 3.11) and make:
 #   make demo   create .venv, install geoflow, run the invented demo valley -> out/demo/
 #   make test   create .venv, install geoflow with test extras, run the test suite
+#   make lint   ruff (pyflakes, imports, bugbear, complexity) and mypy on geoflow/hydraulics
 PYTHON ?= python3
 VENV ?= .venv
 BIN := $(VENV)/bin
 
-.PHONY: demo test bench clean
+.PHONY: demo test lint bench clean
 
 $(BIN)/.installed: pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -18,6 +19,10 @@ demo: $(BIN)/.installed
 
 test: $(BIN)/.installed
 	$(BIN)/python -m pytest -q
+
+lint: $(BIN)/.installed
+	$(BIN)/ruff check geoflow tests benchmarks sample_gis
+	$(BIN)/mypy
 
 bench: $(BIN)/.installed
 	$(BIN)/python benchmarks/bench_hydraulics.py

@@ -46,7 +46,7 @@ def _parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
-        from .batch import check, run     # after parsing: --help and --version stay fast
+        from .batch import check, run  # after parsing: --help and --version stay fast
         if args.command == "check":
             for line in check(args.config).summary_lines():
                 print(line)

@@ -152,33 +152,9 @@ def _read_layer(path: Path, crs, layer, fields, allowed_types, kind, bbox=None, 
     import geopandas as gpd  # heavy import kept at the edge
 
     target = _target_crs(crs, path)
-    if not path.exists():
-        raise InputDataError(f"{path}: file not found; check the path in the config (relative to the config file)")
-    try:
-        layers = [str(name) for name in pyogrio.list_layers(path)[:, 0]]
-    except Exception as exc:  # pyogrio raises several GDAL-backed error types
-        raise InputDataError(f"{path}: cannot open as a vector file ({_one_line(exc)}); give a GeoPackage, Shapefile or GeoJSON") from None
-    if layer is None:
-        if len(layers) != 1:
-            raise InputDataError(f"{path}: holds {len(layers)} layers ({', '.join(layers) or 'none'}); name the layer to read in the config")
-        layer_name = layers[0]
-    else:
-        if str(layer) not in layers:
-            raise InputDataError(f"{path}: layer {layer!r} not found; layers present: {', '.join(layers) or 'none'}")
-        layer_name = str(layer)
+    layer_name = _layer_name(path, layer)
     where = f"{path} (layer {layer_name!r})"
-    try:
-        info = pyogrio.read_info(path, layer=layer_name)
-    except Exception as exc:
-        raise InputDataError(f"{where}: cannot read layer ({_one_line(exc)}); check the file is not damaged") from None
-    present = [str(f) for f in info["fields"]]
-    for field in fields:
-        if field not in present:
-            hint = difflib.get_close_matches(field, present, n=1)
-            extra = f" (did you mean {hint[0]!r}?)" if hint else ""
-            raise InputDataError(f"{where}: field {field!r} not found{extra}; fields present: {', '.join(present) or 'none'}")
-    if info["crs"] is None:
-        raise InputDataError(f"{where}: layer has no coordinate reference system; assign one (e.g. with ogr2ogr -a_srs) and retry")
+    _check_fields_and_crs(path, layer_name, where, fields)
     kwargs = {}
     if bbox is not None:
         kwargs["bbox"] = gpd.GeoSeries([shapely.box(*bbox)], crs=target)
@@ -193,6 +169,42 @@ def _read_layer(path: Path, crs, layer, fields, allowed_types, kind, bbox=None, 
     if gdf.crs != target:
         gdf = gdf.to_crs(target)
     return gdf, where
+
+
+def _layer_name(path: Path, layer) -> str:
+    """The layer to read: the one named, or the only one the file holds."""
+    if not path.exists():
+        raise InputDataError(f"{path}: file not found; check the path in the config (relative to the config file)")
+    try:
+        layers = [str(name) for name in pyogrio.list_layers(path)[:, 0]]
+    except Exception as exc:  # pyogrio raises several GDAL-backed error types
+        raise InputDataError(f"{path}: cannot open as a vector file ({_one_line(exc)}); give a GeoPackage, "
+                             "Shapefile or GeoJSON") from None
+    if layer is None:
+        if len(layers) != 1:
+            raise InputDataError(f"{path}: holds {len(layers)} layers ({', '.join(layers) or 'none'}); name the "
+                                 "layer to read in the config")
+        return layers[0]
+    if str(layer) not in layers:
+        raise InputDataError(f"{path}: layer {layer!r} not found; layers present: {', '.join(layers) or 'none'}")
+    return str(layer)
+
+
+def _check_fields_and_crs(path: Path, layer_name: str, where: str, fields) -> None:
+    try:
+        info = pyogrio.read_info(path, layer=layer_name)
+    except Exception as exc:
+        raise InputDataError(f"{where}: cannot read layer ({_one_line(exc)}); check the file is not damaged") from None
+    present = [str(f) for f in info["fields"]]
+    for field in fields:
+        if field not in present:
+            hint = difflib.get_close_matches(field, present, n=1)
+            extra = f" (did you mean {hint[0]!r}?)" if hint else ""
+            raise InputDataError(f"{where}: field {field!r} not found{extra}; fields present: "
+                                 f"{', '.join(present) or 'none'}")
+    if info["crs"] is None:
+        raise InputDataError(f"{where}: layer has no coordinate reference system; assign one (e.g. with ogr2ogr "
+                             "-a_srs) and retry")
 
 
 def _check_geometries(gdf, where: str, allowed_types, kind: str) -> None:

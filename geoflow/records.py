@@ -1,6 +1,6 @@
 """Frozen records passed between pipeline stages.
 
-Conventions (DESIGN.md): SI units; chainage in metres from the upstream end of the
+Conventions: SI units; chainage in metres from the upstream end of the
 centreline, increasing downstream; stations in metres from the left end of a
 cross-section looking downstream; elevations in the DEM's vertical datum (metres).
 """

@@ -13,7 +13,6 @@ from pathlib import Path
 
 import geopandas as gpd
 import numpy as np
-import pandas as pd
 import pytest
 import rasterio
 from shapely.geometry import LineString, Point

@@ -1,5 +1,5 @@
 """Config parsing and the one-line errors users see for bad configs (no outside reference needed:
-these check the documented config contract in DESIGN.md / README)."""
+these check the documented config contract in the README)."""
 from __future__ import annotations
 
 import subprocess

@@ -19,8 +19,7 @@ from shapely.geometry import LineString
 
 from geoflow.errors import ConfigError, GeometryError
 from geoflow.mapping import ReachMap, map_reach
-from geoflow.mapping.blocks import point_segment_distance
-from geoflow.mapping.engine import wse_surface
+from geoflow.mapping.blocks import Surface, point_segment_distance
 from geoflow.records import ReachGeometry, Section
 from geoflow.terrain import open_dem
 
@@ -167,7 +166,7 @@ def test_crossing_sections_in_a_bend(dem):
     # Interpolation between the two sections stays within their levels (convex weights).
     assert np.all((m.wse[wet] >= 1.0 - 1e-6) & (m.wse[wet] <= 2.0 + 1e-6))
     # Both lobes of the bow tie carry a surface (checked on the raw surface, before wet/dry).
-    surf = wse_surface(geom, np.array([2.0, 1.0]), m.transform, m.wse.shape)
+    surf = Surface(geom.sections, np.array([[2.0, 1.0]])).interpolate(m.transform, 0, 0, m.wse.shape)[0]
     _, yl = cell_centres(m)
     assert np.any(np.isfinite(surf) & (yl > 70)) and np.any(np.isfinite(surf) & (yl < 60))
 

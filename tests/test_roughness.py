@@ -151,15 +151,15 @@ def test_bad_n_value_names_the_class():
 
 
 @pytest.mark.parametrize("parts, documented, computed", [
-    # Point values of Cowan's table and documented examples of a public roughness calculator,
-    # as given in REFERENCES.md 3.5 (source found): (n_b, n1, n2, n3, n4, m).
+    # Cowan (1956) point values and the documented examples of a public roughness calculator that
+    # implements Cowan's table (Arcement & Schneider 1989, Tables 1-2): (n_b, n1, n2, n3, n4, m).
     ((0.020, 0.000, 0.000, 0.000, 0.0075, 1.00), 0.028, 0.0275),    # earth/smooth/gradual/negligible/low/minor
     ((0.025, 0.005, 0.005, 0.0125, 0.0175, 1.15), 0.075, 0.0748),   # rock cut/minor/occasional/minor/medium/appreciable
     ((0.024, 0.010, 0.0125, 0.025, 0.0375, 1.30), 0.142, 0.1417),   # fine gravel/moderate/frequent/appreciable/high/severe
 ])
 def test_cowan_composite_n(parts, documented, computed):
     n = cowan_n(*parts)
-    assert n == pytest.approx(computed, abs=6e-5)  # REFERENCES gives these to 4 places
+    assert n == pytest.approx(computed, abs=6e-5)  # the sums, to 4 places
     assert n == pytest.approx(documented, abs=6e-4)  # the documented values are rounded to 3 places
     np.testing.assert_allclose(cowan_n(np.array([parts[0]] * 2), *parts[1:]), [n, n])
     with pytest.raises(RoughnessError, match="meander factor m"):
@@ -167,7 +167,7 @@ def test_cowan_composite_n(parts, documented, computed):
 
 
 def test_chow_table_rows():
-    # Chow (1959) Table 5-6 as given in REFERENCES.md 3.6 (source found for these two rows).
+    # Chow (1959) Table 5-6, flood-plain rows.
     row = reference_entry("Pasture_Short_Grass")
     assert (row.minimum, row.normal, row.maximum) == (0.025, 0.030, 0.035) and "Chow (1959)" in row.source
     assert reference_entry("dense_brush_summer").normal == 0.100
@@ -258,7 +258,7 @@ def test_read_class_table(tmp_path):
 def test_reference_entry_suggests_the_closest_key():
     from geoflow.roughness.tables import reference_entry
 
-    assert reference_entry(" Dense_Willows ").normal == 0.150  # Chow (1959) Table 5-6, REFERENCES.md 3.6
+    assert reference_entry(" Dense_Willows ").normal == 0.150  # Chow (1959) Table 5-6
     with pytest.raises(RoughnessError) as err:
         reference_entry("pasture_short_gras")
     msg = str(err.value)

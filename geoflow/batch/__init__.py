@@ -7,7 +7,7 @@
 - ``engines``: in-process, local process pool or Dask;
 - ``manifest`` / ``assemble``: what was computed from which inputs; the run-level outputs.
 """
-from .validate import CheckResult, check
 from .run import RunResult, run
+from .validate import CheckResult, check
 
 __all__ = ["CheckResult", "RunResult", "check", "run"]

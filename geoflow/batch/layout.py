@@ -81,7 +81,7 @@ def check_inputs_not_outputs(cfg, others: tuple = ()) -> None:
 
 def _clash(out: Path, inp: Path) -> str | None:
     if inp.parent == out and inp.name in TOP_FILES:
-        return f"a file geoflow writes in the output folder"
+        return "a file geoflow writes in the output folder"
     for d in MANAGED_DIRS:
         folder = (out / d).resolve()
         if _inside(inp, folder):

@@ -21,8 +21,7 @@ import pandas as pd
 from .. import outputs
 from ..config import Config, load_config
 from ..constants import CAUTION
-from ..errors import (ConfigError, GeoflowError, HydraulicsError, InputDataError, is_disk_full, nearly_full,
-                      write_error)
+from ..errors import ConfigError, GeoflowError, HydraulicsError, InputDataError, is_disk_full, nearly_full, write_error
 from ..naming import safe_name
 from ..records import ReachGeometry
 from ..roughness import composite_n_by_part

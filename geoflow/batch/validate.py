@@ -27,8 +27,7 @@ import shapely
 from shapely.geometry import box
 
 from ..config import Config, load_config
-from ..config.crosscheck import (boundary_level_problems, discharge_at_ends, raise_problems,
-                                 reach_length_problems)
+from ..config.crosscheck import boundary_level_problems, discharge_at_ends, raise_problems, reach_length_problems
 from ..errors import GeoflowError, GeometryError, InputDataError
 from ..naming import safe_name
 from ..records import ReachGeometry

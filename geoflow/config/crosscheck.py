@@ -56,6 +56,16 @@ def _reach_name_problems(cfg: Config, reach_ids: list[str]) -> list[str]:
         if len(rid) > MAX_NAME_LENGTH:
             out.append(f"[reaches] id_field: reach id {rid[:40]!r}... in {cfg.reaches.centrelines.name} is "
                        f"{len(rid)} characters long; reach ids become file names, keep them to {MAX_NAME_LENGTH}")
+    out += _event_reach_problems(cfg, known, listing)
+    for table, names in (("sections.reaches", cfg.sections.reaches), ("boundary.reaches", cfg.boundary.reaches)):
+        for rid in names:
+            if rid not in known:
+                out.append(f"[{table}.{rid}]: names a reach that is not in {cfg.reaches.centrelines.name} {listing}")
+    return out
+
+
+def _event_reach_problems(cfg: Config, known: set, listing: str) -> list[str]:
+    out = []
     for ev in cfg.events:
         if not isinstance(ev.discharge, float):
             for rid in ev.discharge:
@@ -69,10 +79,6 @@ def _reach_name_problems(cfg: Config, reach_ids: list[str]) -> list[str]:
             if ch.reach is not None and ch.reach not in known:
                 out.append(f"[[events]] {ev.name!r} changes[{i}]: names reach {ch.reach!r}, which is not in "
                            f"{cfg.reaches.centrelines.name} {listing}")
-    for table, names in (("sections.reaches", cfg.sections.reaches), ("boundary.reaches", cfg.boundary.reaches)):
-        for rid in names:
-            if rid not in known:
-                out.append(f"[{table}.{rid}]: names a reach that is not in {cfg.reaches.centrelines.name} {listing}")
     return out
 
 

@@ -10,8 +10,8 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Mapping
 
-from ..errors import GeoflowError
 from ..constants import MAX_NAME_LENGTH
+from ..errors import GeoflowError
 from ..roughness.tables import N_RANGE, read_class_table, reference_entry
 from .model import (
     BOUNDARY_TYPES,

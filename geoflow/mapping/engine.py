@@ -55,18 +55,15 @@ import rasterio
 import shapely
 from affine import Affine
 from rasterio.crs import CRS
-from rasterio.features import rasterize, shapes
+from rasterio.features import rasterize
 from rasterio.windows import Window
-from scipy import ndimage
-from shapely.geometry import shape
 
 from .. import outputs
 from ..errors import ConfigError, GeometryError, RoughnessError
 from .blocks import Grid, Surface
-from .join import outline, run_blocks
+from .join import run_blocks
 
-__all__ = ["ReachMap", "MapSummary", "VelocityInputs", "map_reach", "write_reach_maps", "wse_surface",
-           "connected_to_seed", "extent_polygons"]
+__all__ = ["ReachMap", "MapSummary", "VelocityInputs", "map_reach", "write_reach_maps"]
 
 PAD_CELLS = 3
 MAP_KINDS = ("wse", "depth", "velocity")
@@ -332,26 +329,3 @@ def _reach_window(dem, geom, factor: int, pad: int) -> tuple[Window, Affine, tup
     return win, transform, (int(win.height) // factor, int(win.width) // factor)
 
 
-def wse_surface(geom, wse_at_section: np.ndarray, transform: Affine, shape_rc: tuple[int, int]) -> np.ndarray:
-    """WSE (m, float64) interpolated between consecutive sections; NaN outside every quad."""
-    surface = Surface(geom.sections, np.asarray(wse_at_section, dtype=np.float64))
-    return surface.interpolate(transform, 0, 0, tuple(shape_rc))[0]
-
-
-def connected_to_seed(wet: np.ndarray, seed: np.ndarray) -> np.ndarray:
-    """Wet cells 8-connected to at least one wet seed cell (whole array in memory)."""
-    labels, count = ndimage.label(wet, structure=_EIGHT)
-    if count == 0:
-        return np.zeros_like(wet, dtype=bool)
-    keep = np.zeros(count + 1, dtype=bool)
-    keep[np.unique(labels[seed & wet])] = True
-    keep[0] = False
-    return keep[labels]
-
-
-def extent_polygons(mask: np.ndarray, transform: Affine) -> list:
-    """Outline polygons of ``mask`` (DEM CRS): simplified to half a cell, valid, no parts < 1 cell."""
-    if not mask.any():
-        return []
-    geoms = [shape(g) for g, _ in shapes(mask.astype(np.uint8), mask=mask, transform=transform, connectivity=8)]
-    return outline(geoms, transform)
