@@ -12,7 +12,7 @@ import numpy as np
 from shapely.geometry import LineString
 
 # Codes of the three conveyance parts of a section, per station segment.
-LEFT_OVERBANK, CHANNEL, RIGHT_OVERBANK = 0, 1, 2
+LEFT_FLOODPLAIN, CHANNEL, RIGHT_FLOODPLAIN = 0, 1, 2
 
 
 @dataclass(frozen=True, eq=False)
@@ -31,11 +31,11 @@ class Section:
     elevation: np.ndarray      # (m,) ground elevation, m (DEM vertical datum)
     n: np.ndarray = field(default=None)          # (m-1,) Manning's n per segment
     landcover: np.ndarray = field(default=None)  # (m-1,) land-cover class name per segment
-    part: np.ndarray = field(default=None)       # (m-1,) int8: LEFT_OVERBANK / CHANNEL / RIGHT_OVERBANK
+    part: np.ndarray = field(default=None)       # (m-1,) int8: LEFT_FLOODPLAIN / CHANNEL / RIGHT_FLOODPLAIN
     flags: tuple[str, ...] = ()
 
     @property
-    def bank_stations(self) -> tuple[float, float]:
+    def channel_edges(self) -> tuple[float, float]:
         """Stations (m) of the left and right bank: the ends of the channel part."""
         if self.part is None or not np.any(self.part == CHANNEL):
             return float(self.station[0]), float(self.station[-1])
@@ -55,5 +55,5 @@ class ReachGeometry:
     reach_id: str
     centreline: LineString     # DEM CRS, drawn in the direction of flow
     sections: tuple[Section, ...]
-    lengths: np.ndarray        # (N-1, 3) m from section i to i+1: left overbank, channel, right overbank
+    lengths: np.ndarray        # (N-1, 3) m from section i to i+1: left floodplain, channel, right floodplain
     warnings: tuple[str, ...] = ()

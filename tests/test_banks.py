@@ -62,6 +62,6 @@ def test_asymmetric_trapezoid_and_roughness_fallback(tmp_path):
     out = assign_roughness(geom, grass, "water", {"grass": 0.035})
     for sec in out.sections:
         y_left = np.asarray(sec.line.coords)[0, 1]
-        lb, rb = sec.bank_stations
+        lb, rb = sec.channel_edges
         assert "no_channel_cover" in sec.flags
         assert y_left - lb == pytest.approx(156.0, abs=1.0) and y_left - rb == pytest.approx(137.0, abs=1.0)

@@ -105,8 +105,9 @@ def test_profile_csv_column_order_and_format(tmp_path):
     path = write_profile_csv(tmp_path / "profile.csv", profile_frame())
     with open(path, newline="") as fh:                    # reference reader: csv module
         rows = list(csv.reader(fh))
-    assert tuple(rows[0][:16]) == PROFILE_COLUMNS and rows[0][16:] == ["note"]
-    flags = [r[15] for r in rows[1:]]
+    k = len(PROFILE_COLUMNS)
+    assert tuple(rows[0][:k]) == PROFILE_COLUMNS and rows[0][k:] == ["note"]
+    flags = [r[PROFILE_COLUMNS.index("flags")] for r in rows[1:]]
     assert flags == ["", "supercritical;extended", "", ""]
     wse = [r[PROFILE_COLUMNS.index("wse_m")] for r in rows[1:]]
     assert wse == ["10.1235", "", "11.0000", "12.5000"]
@@ -123,7 +124,7 @@ def test_profile_csv_missing_column(tmp_path):
 def test_sections_gpkg_roundtrip_and_replace(tmp_path):
     lines = [LineString([(500000 + 10 * i, 4000100), (500000 + 10 * i, 4000000)]) for i in range(3)]
     gdf = gpd.GeoDataFrame({"section_id": [0, 1, 2], "reach_id": "r1", "chainage_m": [0.0, 10.0, 20.0],
-                            "left_bank_station_m": 40.0, "right_bank_station_m": 60.0,
+                            "channel_edge_left_m": 40.0, "channel_edge_right_m": 60.0,
                             "flags": [(), ("extended",), ()], "wse_q100": [3.0, 2.9, 2.8]},
                            geometry=lines, crs=CRS_UTM.to_wkt())
     path = tmp_path / "sections.gpkg"

@@ -14,7 +14,7 @@ from shapely.geometry import LineString
 
 from geoflow.constants import CAUTION
 from geoflow.outputs import PROFILE_COLUMNS
-from geoflow.records import CHANNEL, LEFT_OVERBANK, RIGHT_OVERBANK, ReachGeometry, Section
+from geoflow.records import CHANNEL, LEFT_FLOODPLAIN, RIGHT_FLOODPLAIN, ReachGeometry, Section
 from geoflow.report import event_summary, write_report
 
 EVENTS = ["q10", "q100"]
@@ -25,7 +25,7 @@ def make_geom(n_sections: int = 5) -> ReachGeometry:
     station = np.array([0.0, 20.0, 40.0, 44.0, 56.0, 60.0, 80.0, 100.0])
     shape = np.array([3.0, 2.8, 2.5, 0.0, 0.0, 2.5, 2.9, 3.2])
     n = np.array([0.06, 0.05, 0.05, 0.035, 0.05, 0.05, 0.08])
-    part = np.array([LEFT_OVERBANK] * 3 + [CHANNEL] + [RIGHT_OVERBANK] * 3, dtype=np.int8)
+    part = np.array([LEFT_FLOODPLAIN] * 3 + [CHANNEL] + [RIGHT_FLOODPLAIN] * 3, dtype=np.int8)
     secs = []
     for i in range(n_sections):
         x = 100.0 * i

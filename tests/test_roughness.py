@@ -9,7 +9,7 @@ import shapely
 
 from geoflow.errors import RoughnessError
 from geoflow.layers import LandCover
-from geoflow.records import CHANNEL, LEFT_OVERBANK, RIGHT_OVERBANK
+from geoflow.records import CHANNEL, LEFT_FLOODPLAIN, RIGHT_FLOODPLAIN
 from geoflow.roughness import assign_roughness, landcover_classes
 from geoflow.roughness.tables import CHOW_1959, cowan_n, reference_entry
 from geoflow.sections import cut_sections
@@ -50,7 +50,7 @@ def bands(pond=True):
 
 def test_three_bands_give_n_and_parts_by_hand_geometry():
     # Hand geometry: segment mid-point y = 50 - s_mid decides the band; the channel is the water
-    # band through the centreline, the pond (water, 30 < y < 35) stays left overbank.
+    # band through the centreline, the pond (water, 30 < y < 35) stays left floodplain.
     geom = straight_reach()
     out = assign_roughness(geom, cover(*bands()), "water", N_TABLE)
     for sec in out.sections:
@@ -59,9 +59,9 @@ def test_three_bands_give_n_and_parts_by_hand_geometry():
         expected_cls = np.where(water, "water", np.where(y > 0, "grass", "forest"))
         np.testing.assert_array_equal(sec.landcover, expected_cls)
         np.testing.assert_allclose(sec.n, [N_TABLE[c] for c in expected_cls])
-        expected_part = np.where(np.abs(y) < 10, CHANNEL, np.where(y > 0, LEFT_OVERBANK, RIGHT_OVERBANK))
+        expected_part = np.where(np.abs(y) < 10, CHANNEL, np.where(y > 0, LEFT_FLOODPLAIN, RIGHT_FLOODPLAIN))
         np.testing.assert_array_equal(sec.part, expected_part)
-        assert sec.part.dtype == np.int8 and sec.bank_stations == (40.0, 60.0)
+        assert sec.part.dtype == np.int8 and sec.channel_edges == (40.0, 60.0)
     assert geom.sections[0].n is None  # input records untouched (frozen, replaced)
     # Straight parallel sections: every path between them is the 50 m spacing (hand geometry).
     np.testing.assert_allclose(out.lengths, 50.0)
@@ -87,7 +87,7 @@ def test_gap_without_and_with_default_n():
     sec = out.sections[2]
     np.testing.assert_allclose(sec.n[60:], 0.06)
     assert set(sec.landcover[60:]) == {""} and "landcover_gap" in sec.flags
-    np.testing.assert_array_equal(sec.part[60:], RIGHT_OVERBANK)
+    np.testing.assert_array_equal(sec.part[60:], RIGHT_FLOODPLAIN)
 
 
 def test_class_missing_from_table_is_named():
@@ -108,7 +108,7 @@ def test_no_channel_cover_takes_lowest_point():
     geom = straight_reach(SurfaceDem(lambda x, y: np.abs(y - 7.0)))
     out = assign_roughness(geom, cover((shapely.box(-10, -60, 210, 60), "grass")), "water", N_TABLE)
     for sec in out.sections:
-        assert "no_channel_cover" in sec.flags and sec.bank_stations == (42.0, 44.0)
+        assert "no_channel_cover" in sec.flags and sec.channel_edges == (42.0, 44.0)
     assert len([w for w in out.warnings if "no 'water' cover" in w]) == len(out.sections)
 
 
@@ -125,9 +125,9 @@ def annulus(r0: float, r1: float) -> shapely.Polygon:
                                       np.column_stack((r1 * np.cos(t[::-1]), r1 * np.sin(t[::-1]))))))
 
 
-def test_overbank_lengths_on_a_bend_follow_the_arc():
+def test_floodplain_lengths_on_a_bend_follow_the_arc():
     # Analytic geometry: counter-clockwise arc of radius R, sections radial, so the left (inner)
-    # overbank mid-point lies on radius R - 30 and consecutive ones are a chord
+    # floodplain mid-point lies on radius R - 30 and consecutive ones are a chord
     # 2 (R - 30) sin(dtheta / 2) apart, dtheta = spacing / R; right (outer) on R + 30.
     r, spacing = 300.0, 50.0
     line = arc_centreline(r)
@@ -142,7 +142,7 @@ def test_overbank_lengths_on_a_bend_follow_the_arc():
         np.testing.assert_allclose(out.lengths[1:-1, col], chord[1:-1], rtol=2e-3)
         np.testing.assert_allclose(out.lengths[:, col], chord, rtol=1e-2)
     np.testing.assert_allclose(out.lengths[:, 1], r * dth, rtol=1e-9)
-    assert all(s.bank_stations == pytest.approx((40.0, 60.0), abs=1.0) for s in out.sections)
+    assert all(s.channel_edges == pytest.approx((40.0, 60.0), abs=1.0) for s in out.sections)
 
 
 def test_bad_n_value_names_the_class():
@@ -202,14 +202,14 @@ def test_files_to_roughness_end_to_end(tmp_path):
     out = assign_roughness(geom, read_landcover(tmp_path / "lc.gpkg", dem.crs, "lc"), "water", N_TABLE)
     assert out.reach_id == "5" and len(out.sections) == 5
     for sec in out.sections:
-        assert sec.bank_stations == (40.0, 60.0)
+        assert sec.channel_edges == (40.0, 60.0)
         np.testing.assert_allclose(sec.elevation, 5.0 + 0.01 * sec.chainage, atol=1e-9)
 
 
 def test_composite_n_by_part_hand_arithmetic():
     # Horton/Einstein composite n_c = [sum(P_i n_i^1.5) / P]^(2/3) (Chow 1959, ch. 6), by hand:
     # left: P = 1, 1 with n = 0.04, 0.09 -> (0.008 + 0.027) / 2 = 0.0175; channel: a 1 x 0.75 m
-    # slope (P = 1.25, n = 0.04) and a flat 1 m (n = 0.09) -> (0.010 + 0.027) / 2.25; no right overbank.
+    # slope (P = 1.25, n = 0.04) and a flat 1 m (n = 0.09) -> (0.010 + 0.027) / 2.25; no right floodplain.
     import dataclasses
 
     from geoflow.records import Section
@@ -218,11 +218,11 @@ def test_composite_n_by_part_hand_arithmetic():
     sec = Section("r", 0, 0.0, shapely.LineString([(0, 0), (4, 0)]), np.arange(5.0),
                   np.array([2.0, 2.0, 2.0, 1.25, 1.25]))
     sec = dataclasses.replace(sec, n=np.array([0.04, 0.09, 0.04, 0.09]),
-                              part=np.array([LEFT_OVERBANK, LEFT_OVERBANK, CHANNEL, CHANNEL], dtype=np.int8))
-    n_lob, n_ch, n_rob = composite_n_by_part(sec)
-    assert n_lob == pytest.approx(0.0175 ** (2 / 3), rel=1e-12)
+                              part=np.array([LEFT_FLOODPLAIN, LEFT_FLOODPLAIN, CHANNEL, CHANNEL], dtype=np.int8))
+    n_left, n_ch, n_right = composite_n_by_part(sec)
+    assert n_left == pytest.approx(0.0175 ** (2 / 3), rel=1e-12)
     assert n_ch == pytest.approx((0.037 / 2.25) ** (2 / 3), rel=1e-12)
-    assert np.isnan(n_rob)
+    assert np.isnan(n_right)
     with pytest.raises(RoughnessError, match="assign_roughness"):
         composite_n_by_part(dataclasses.replace(sec, n=None))
 
@@ -278,16 +278,16 @@ def test_segments_of_a_dog_leg_section_take_the_cover_under_them():
     out = assign_roughness(geom, lc, "water", N_TABLE)
     sec = out.sections[0]
     np.testing.assert_array_equal(sec.landcover, ["water"] * 19 + ["forest"] * 21)
-    assert sec.bank_stations == (0.0, 19.0)
+    assert sec.channel_edges == (0.0, 19.0)
 
 
-def test_overbank_paths_through_weighted_centroids_on_a_bend():
+def test_floodplain_paths_through_weighted_centroids_on_a_bend():
     # Analytic geometry: ground z = 0.1 |r - R| on a bend of radius R, radial sections 100 m wide,
-    # channel cover R - 10 < r < R + 10. The inner overbank strip runs r = R - 50 .. R - 10 with
+    # channel cover R - 10 < r < R + 10. The inner floodplain strip runs r = R - 50 .. R - 10 with
     # weight (z_max - z) = 0.1 (r - (R - 50)), linear in r, so its centroid lies two thirds of the
     # way to the bank, at r = R - 50 + 40 x 2/3; the outer one mirrors it at R + 50 - 40 x 2/3.
     # Path length between sections dtheta apart: chord 2 r sin(dtheta / 2). Unweighted: r = R -+ 30.
-    from geoflow.sections import overbank_lengths
+    from geoflow.sections import floodplain_lengths
 
     r, spacing = 300.0, 50.0
     line = arc_centreline(r)
@@ -299,5 +299,5 @@ def test_overbank_paths_through_weighted_centroids_on_a_bend():
     dth = np.diff([s.chainage for s in out.sections]) / r
     for col, radius in ((0, r - 50 + 40 * 2 / 3), (2, r + 50 - 40 * 2 / 3)):
         np.testing.assert_allclose(out.lengths[1:-1, col], (2 * radius * np.sin(dth / 2))[1:-1], rtol=2e-3)
-    flat = overbank_lengths(out, weighted=False)
+    flat = floodplain_lengths(out, weighted=False)
     np.testing.assert_allclose(flat[1:-1, 0], (2 * (r - 30) * np.sin(dth / 2))[1:-1], rtol=2e-3)

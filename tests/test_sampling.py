@@ -59,7 +59,7 @@ def test_sections_split_exactly_at_landcover_edges(tmp_path):
         edges = [50.0 - 37.7, 50.0 - 22.3]
         for e in edges:
             assert np.min(np.abs(sec.station - e)) < 1e-9
-        np.testing.assert_allclose(sec.bank_stations, edges, atol=1e-9)
+        np.testing.assert_allclose(sec.channel_edges, edges, atol=1e-9)
         mid = 0.5 * (sec.station[:-1] + sec.station[1:])
         expected = np.where(mid < edges[0], 0.1, np.where(mid < edges[1], 0.04, 0.03))
         np.testing.assert_allclose(sec.n, expected)

@@ -26,7 +26,7 @@ from .tables import EXTENT_COLUMNS, PROFILE_COLUMNS, SECTION_COLUMNS
 _PROFILE_FORMATS = {
     "chainage_m": "%.3f", "discharge_m3s": "%.6g", "bed_m": "%.4f", "wse_m": "%.4f", "energy_m": "%.4f",
     "critical_wse_m": "%.4f", "velocity_ms": "%.4f", "froude": "%.4f", "alpha": "%.4f", "area_m2": "%.4f",
-    "top_width_m": "%.4f", "friction_slope": "%.6g",
+    "top_width_m": "%.4f", "friction_slope": "%.6g", "depth_m": "%.4f", "critical_depth_m": "%.4f",
 }
 
 

@@ -7,13 +7,38 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-#: profile.csv: these columns first, in this order (a contract; extra columns follow).
+#: profile.csv columns, grouped by meaning: where; the flow; levels and depths; velocity and its
+#: measures; section properties; how the flow splits between channel and floodplains; flags.
+#: All are written in this order (a contract; see CHANGELOG.md for changes).
 PROFILE_COLUMNS = (
-    "reach_id", "event", "section_id", "chainage_m", "discharge_m3s", "bed_m", "wse_m", "energy_m",
-    "critical_wse_m", "velocity_ms", "froude", "alpha", "area_m2", "top_width_m", "friction_slope", "flags",
+    "reach_id", "event", "section_id", "chainage_m",
+    "discharge_m3s", "regime",
+    "bed_m", "wse_m", "depth_m", "energy_m", "critical_wse_m", "critical_depth_m",
+    "velocity_ms", "froude", "alpha",
+    "area_m2", "top_width_m", "friction_slope",
+    "q_channel_m3s", "q_floodplain_left_m3s", "q_floodplain_right_m3s",
+    "flags",
 )
+#: what each profile.csv column holds (units in the name: _m metres, _m2, _m3s m3/s, _ms m/s)
+PROFILE_MEANING = {
+    "reach_id": "reach id (from the centreline layer)", "event": "event name",
+    "section_id": "cross-section number, 0 at the upstream end",
+    "chainage_m": "distance along the centreline from its upstream end, m",
+    "discharge_m3s": "discharge through the section, m3/s", "regime": "subcritical, supercritical or critical",
+    "bed_m": "lowest ground of the section, m", "wse_m": "water-surface elevation, m",
+    "depth_m": "water-surface elevation minus the lowest ground, m", "energy_m": "energy grade elevation, m",
+    "critical_wse_m": "water-surface elevation at critical depth, m",
+    "critical_depth_m": "critical depth above the lowest ground, m",
+    "velocity_ms": "mean velocity Q/A, m/s", "froude": "Froude number V / sqrt(g A / T)",
+    "alpha": "energy (velocity-head) coefficient of the subdivided section",
+    "area_m2": "flow area, m2", "top_width_m": "water-surface width, m",
+    "friction_slope": "friction slope (Q/K)^2, m/m",
+    "q_channel_m3s": "discharge in the channel, m3/s", "q_floodplain_left_m3s": "discharge on the left floodplain, m3/s",
+    "q_floodplain_right_m3s": "discharge on the right floodplain, m3/s",
+    "flags": "';'-separated flag words (see the README flag table)",
+}
 #: sections.gpkg layer "sections": required attributes.
-SECTION_COLUMNS = ("reach_id", "section_id", "chainage_m", "left_bank_station_m", "right_bank_station_m", "flags")
+SECTION_COLUMNS = ("reach_id", "section_id", "chainage_m", "channel_edge_left_m", "channel_edge_right_m", "flags")
 #: inundation.gpkg layer "extent": required attributes.
 EXTENT_COLUMNS = ("reach_id", "event")
 
@@ -29,28 +54,32 @@ def profile_rows(geom, event: str, prof) -> pd.DataFrame:
     n = len(geom.sections)
     flags = [";".join(k for k in dict.fromkeys(tuple(s.flags) + tuple(f)) if k not in INFO_ONLY_FLAGS)
              for s, f in zip(geom.sections, prof.flags)]
+    bed = np.array([s.bed_elevation for s in geom.sections])
+    q = np.asarray(prof.part_discharge)
     df = pd.DataFrame({
         "reach_id": [geom.reach_id] * n,
         "event": [event] * n,
         "section_id": [s.section_id for s in geom.sections],
         "chainage_m": [s.chainage for s in geom.sections],
         "discharge_m3s": prof.discharge,
-        "bed_m": [s.bed_elevation for s in geom.sections],
+        "regime": list(prof.regime),
+        "bed_m": bed,
         "wse_m": prof.wse,
+        "depth_m": np.asarray(prof.wse) - bed,
         "energy_m": prof.energy,
         "critical_wse_m": prof.critical_wse,
+        "critical_depth_m": np.asarray(prof.critical_wse) - bed,
         "velocity_ms": prof.velocity,
         "froude": prof.froude,
         "alpha": prof.alpha,
         "area_m2": prof.area,
         "top_width_m": prof.top_width,
         "friction_slope": prof.friction_slope,
+        "q_channel_m3s": q[:, 1],
+        "q_floodplain_left_m3s": q[:, 0],
+        "q_floodplain_right_m3s": q[:, 2],
         "flags": flags,
     })
-    df["regime"] = list(prof.regime)
-    df["depth_m"] = df["wse_m"] - df["bed_m"]
-    for j, name in enumerate(("left_overbank", "channel", "right_overbank")):
-        df[f"q_{name}_m3s"] = prof.part_discharge[:, j]
     return df
 
 
@@ -61,11 +90,11 @@ def section_rows(geom, composite_n) -> list[dict]:
     """
     rows = []
     for s in geom.sections:
-        lb, rb = s.bank_stations
-        n_lob, n_ch, n_rob = composite_n(s)
+        lb, rb = s.channel_edges
+        n_left, n_ch, n_right = composite_n(s)
         rows.append({"reach_id": geom.reach_id, "section_id": s.section_id, "chainage_m": s.chainage,
-                     "left_bank_station_m": lb, "right_bank_station_m": rb, "bed_m": s.bed_elevation,
-                     "n_left_overbank": n_lob, "n_channel": n_ch, "n_right_overbank": n_rob,
+                     "channel_edge_left_m": lb, "channel_edge_right_m": rb, "bed_m": s.bed_elevation,
+                     "n_floodplain_left": n_left, "n_channel": n_ch, "n_floodplain_right": n_right,
                      "flags": ";".join(s.flags), "geometry": s.line})
     return rows
 

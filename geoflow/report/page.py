@@ -1,6 +1,6 @@
 """One self-contained HTML page per reach: caution, plots and tables.
 
-Needs: the reach geometry (sections with ground, n per segment, bank stations), the profile
+Needs: the reach geometry (sections with ground, n per segment, channel edges), the profile
 table of that reach for all events (profile.csv columns) and the event names in order.
 Provides: an HTML file with every figure embedded as a base64 PNG (no side files). Figures
 are drawn with matplotlib's Agg canvas on ``Figure`` objects (no pyplot global state).
@@ -9,7 +9,7 @@ Page, top to bottom: title; the engineering caution in a framed box; key facts; 
 with one row per event (largest depth, mean velocity, largest Froude number, flagged sections and
 why); the long profile (bed, water surface, energy grade line and critical level per event
 against chainage); cross-sections at the upstream end, the middle and the downstream end
-(ground, water surface per event, bank stations, Manning's n per ground segment); the full
+(ground, water surface per event, channel edges, Manning's n per ground segment); the full
 profile table.
 """
 from __future__ import annotations
@@ -115,7 +115,7 @@ def _n_runs(section):
 
 
 def section_figure(section, rows: pd.DataFrame, events, label: str) -> Figure:
-    """Ground, water surface per event, bank stations and Manning's n runs of one section."""
+    """Ground, water surface per event, channel edges and Manning's n runs of one section."""
     fig = Figure(figsize=(11, 3.8))
     fig.subplots_adjust(left=0.07, right=0.80, bottom=0.13, top=0.91)   # room for the legend at the right
     ax = fig.add_subplot()
@@ -138,7 +138,7 @@ def section_figure(section, rows: pd.DataFrame, events, label: str) -> Figure:
                 label=f"{event}: water surface {level[0]:.2f} m")
     ax.fill_between(st, z, base, color=_GROUND, alpha=0.35, lw=0)
     ax.plot(st, z, color=_GROUND, lw=1.8, label="ground")
-    for s, name, side in zip(section.bank_stations, ("left bank", "right bank"), ("right", "left")):
+    for s, name, side in zip(section.channel_edges, ("left bank", "right bank"), ("right", "left")):
         ax.axvline(s, color="k", ls="--", lw=1)          # labels lean away from each other: never overlap
         ax.text(s, top + 0.05 * span, f" {name} " if side == "left" else f"{name} ", ha=side, va="bottom",
                 fontsize=8)

@@ -9,8 +9,8 @@ Table 5-6 (see :mod:`geoflow.roughness.tables`).
 
 Parts: the channel is the contiguous run of ``channel_class`` segments nearest to the
 centre of the section (where the centreline crosses it); segments left of it are left
-overbank, right of it right overbank; channel-class segments away from that run (ponds,
-side arms) count as overbank. Without any channel cover the banks are found from the ground
+floodplain, right of it right floodplain; channel-class segments away from that run (ponds,
+side arms) count as floodplain. Without any channel cover the banks are found from the ground
 by break in slope (:func:`geoflow.sections.banks.detect_banks`) and the section is flagged
 ``no_channel_cover``. The centre of a section is where the centreline crosses it (so
 sections of uneven sides, adaptive width or drawn by the user, are handled).
@@ -24,9 +24,9 @@ import numpy as np
 import shapely
 
 from ..errors import RoughnessError
-from ..records import CHANNEL, LEFT_OVERBANK, RIGHT_OVERBANK, ReachGeometry, Section
+from ..records import CHANNEL, LEFT_FLOODPLAIN, RIGHT_FLOODPLAIN, ReachGeometry, Section
 from ..sections.banks import detect_banks
-from ..sections.lengths import overbank_lengths
+from ..sections.lengths import floodplain_lengths
 
 GAP_CLASS = ""   # land-cover name given to segments in a gap filled with default_n
 
@@ -43,8 +43,8 @@ def assign_roughness(geom: ReachGeometry, cover, channel_class: str, n_table: Ma
     ``n_table`` maps class name -> n (a number, or anything with an ``n`` attribute or key).
     Segments in no polygon get ``default_n`` (class ``""``, flag ``landcover_gap``) or raise
     :class:`RoughnessError`; so do classes missing from ``n_table`` when no ``default_n``.
-    With ``update_lengths`` the overbank lengths are recomputed from the bank stations
-    (:func:`geoflow.sections.lengths.overbank_lengths`).
+    With ``update_lengths`` the floodplain lengths are recomputed from the channel edges
+    (:func:`geoflow.sections.lengths.floodplain_lengths`).
     """
     rid = geom.reach_id
     table = {str(k): _n_value(k, v) for k, v in n_table.items()}
@@ -76,7 +76,7 @@ def assign_roughness(geom: ReachGeometry, cover, channel_class: str, n_table: Ma
                                                 flags=tuple(flags)))
     out = dataclasses.replace(geom, sections=tuple(new_sections), warnings=tuple(warnings))
     if update_lengths:
-        out = dataclasses.replace(out, lengths=overbank_lengths(out))
+        out = dataclasses.replace(out, lengths=floodplain_lengths(out))
     return out
 
 
@@ -203,12 +203,12 @@ def _parts(is_channel: np.ndarray, station: np.ndarray, elevation: np.ndarray,
         lo, hi = int(np.searchsorted(station, left)), int(np.searchsorted(station, right))
         lo, hi = min(lo, m - 1), max(hi, min(lo, m - 1) + 1)
     idx = np.arange(m)
-    part = np.where(idx < lo, LEFT_OVERBANK, np.where(idx >= hi, RIGHT_OVERBANK, CHANNEL)).astype(np.int8)
+    part = np.where(idx < lo, LEFT_FLOODPLAIN, np.where(idx >= hi, RIGHT_FLOODPLAIN, CHANNEL)).astype(np.int8)
     return part, found
 
 
 def composite_n_by_part(section: Section) -> tuple[float, float, float]:
-    """(n_left_overbank, n_channel, n_right_overbank): one composite Manning's n per part.
+    """(n_floodplain_left, n_channel, n_floodplain_right): one composite Manning's n per part.
 
     Horton/Einstein (equal mean velocity in every sub-area): n_c = [sum(P_i n_i^1.5) / P]^(2/3),
     Chow (1959) *Open-Channel Hydraulics*, ch. 6, with P_i the ground length of segment i
@@ -221,7 +221,7 @@ def composite_n_by_part(section: Section) -> tuple[float, float, float]:
     p = np.hypot(np.diff(section.station), np.diff(section.elevation))
     n = np.asarray(section.n, dtype=np.float64)
     out = []
-    for code in (LEFT_OVERBANK, CHANNEL, RIGHT_OVERBANK):
+    for code in (LEFT_FLOODPLAIN, CHANNEL, RIGHT_FLOODPLAIN):
         sel = np.asarray(section.part) == code
         total = p[sel].sum()
         out.append(float((np.sum(p[sel] * n[sel] ** 1.5) / total) ** (2.0 / 3.0)) if total > 0 else float("nan"))

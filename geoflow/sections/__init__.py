@@ -14,9 +14,9 @@ Pure geometry on shapely/numpy: the DEM is reached only through ``dem.sample(x, 
 from .banks import detect_banks
 from .common import fill_small_gaps
 from .cut import cut_sections, grid_stations
-from .lengths import overbank_lengths
+from .lengths import floodplain_lengths
 from .orient import orient_centreline
 from .userlines import sections_from_lines
 
 __all__ = ["cut_sections", "detect_banks", "fill_small_gaps", "grid_stations", "orient_centreline",
-           "overbank_lengths", "sections_from_lines"]
+           "floodplain_lengths", "sections_from_lines"]

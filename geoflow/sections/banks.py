@@ -26,7 +26,7 @@ from ..errors import GeometryError
 
 def detect_banks(station, elevation, centre_station: float, slope_fraction: float = 0.3, min_slope: float = 0.05,
                  min_height: float = 0.1, search: float | None = None) -> tuple[float, float]:
-    """(left, right) bank stations (m, ground-point stations) of one profile by break in slope.
+    """(left, right) channel edges (m, ground-point stations) of one profile by break in slope.
 
     ``station`` (m, increasing, from the left end) and ``elevation`` (m) have the same length
     (>= 2); ``centre_station`` is where the centreline crosses. See the module notes.

@@ -57,7 +57,7 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
     bare lines, DEM CRS); a side crossing one is shortened to just short of it (flag
     ``shortened_at_confluence``), see :mod:`geoflow.sidelimits`.
 
-    ``lengths`` (N-1, 3): channel = chainage difference; left/right overbank = distance
+    ``lengths`` (N-1, 3): channel = chainage difference; left/right floodplain = distance
     between the mid-points of the left (right) halves of consecutive section lines.
     """
     rid = str(reach_id)
@@ -273,7 +273,7 @@ def _sample_profiles(dem, left_end, right_end, stations) -> list[np.ndarray]:
 
 
 def _lengths(chain, centre, normal, half) -> np.ndarray:
-    """(N-1, 3) reach lengths: left overbank, channel, right overbank (see cut_sections)."""
+    """(N-1, 3) reach lengths: left floodplain, channel, right floodplain (see cut_sections)."""
     left_mid = centre + 0.5 * half[:, :1] * normal
     right_mid = centre - 0.5 * half[:, 1:] * normal
     return np.column_stack((

@@ -10,12 +10,12 @@ import shapely
 from ..records import ReachGeometry
 
 
-def overbank_lengths(geom: ReachGeometry, weighted: bool = True) -> np.ndarray:
-    """(N-1, 3) lengths using each section's bank stations (``part`` must be set).
+def floodplain_lengths(geom: ReachGeometry, weighted: bool = True) -> np.ndarray:
+    """(N-1, 3) lengths using each section's channel edges (``part`` must be set).
 
-    Left (right) overbank length = distance between the centroids of the left (right)
-    overbank ground strips of consecutive sections, a stand-in for the flow path through each
-    overbank's centroid of flow. With ``weighted`` each segment of the strip weighs
+    Left (right) floodplain length = distance between the centroids of the left (right)
+    floodplain ground strips of consecutive sections, a stand-in for the flow path through each
+    floodplain's centroid of flow. With ``weighted`` each segment of the strip weighs
     (segment length) x (highest ground of the strip - segment ground), the depth under a level
     at the strip's highest ground, as a proxy for where the flow goes; a flat strip (or
     ``weighted=False``) gives the mid-point of the strip. An empty strip uses its bank point.
@@ -23,7 +23,7 @@ def overbank_lengths(geom: ReachGeometry, weighted: bool = True) -> np.ndarray:
     """
     lines, where = [], []
     for sec in geom.sections:
-        lb, rb = sec.bank_stations
+        lb, rb = sec.channel_edges
         lines.append(sec.line)
         where.append([_strip_centroid(sec, sec.station <= lb + 1e-9, lb, weighted),
                       _strip_centroid(sec, sec.station >= rb - 1e-9, rb, weighted)])
@@ -38,7 +38,7 @@ def overbank_lengths(geom: ReachGeometry, weighted: bool = True) -> np.ndarray:
 
 
 def _strip_centroid(sec, inside: np.ndarray, bank: float, weighted: bool) -> float:
-    """Station of the (weighted) centroid of the ground points ``inside`` (one overbank strip)."""
+    """Station of the (weighted) centroid of the ground points ``inside`` (one floodplain strip)."""
     st, z = sec.station[inside], sec.elevation[inside]
     if st.size < 2:
         return float(bank)

@@ -11,7 +11,7 @@ Pure geometry on shapely/numpy; the DEM is reached only through ``dem.sample(x, 
 * stations are distances along the polyline: every ``sample_step`` m from its start plus
   its vertices, so a dog-leg is sampled exactly at its corners;
 * sections are ordered by chainage; lengths as in :func:`geoflow.sections.cut_sections`
-  (channel = chainage difference; overbanks = distance between the mid-points of the left
+  (channel = chainage difference; floodplains = distance between the mid-points of the left
   / right parts of consecutive lines, each part measured along the polyline).
 """
 from __future__ import annotations
@@ -118,7 +118,7 @@ def _flag_crossing_lines(rid: str, geoms: np.ndarray, chain: np.ndarray, flags, 
 
 
 def _lengths(geoms: np.ndarray, chain: np.ndarray, centre_st: np.ndarray) -> np.ndarray:
-    """(N-1, 3): left overbank, channel, right overbank, as in cut_sections (mid-points along each line)."""
+    """(N-1, 3): left floodplain, channel, right floodplain, as in cut_sections (mid-points along each line)."""
     lg = shapely.length(geoms)
     left = shapely.get_coordinates(shapely.line_interpolate_point(geoms, 0.5 * centre_st))
     right = shapely.get_coordinates(shapely.line_interpolate_point(geoms, 0.5 * (centre_st + lg)))
