@@ -32,6 +32,7 @@ PURE = {
     "geoflow.constants": set(),
     "geoflow.errors": set(),
     "geoflow.naming": set(),
+    "geoflow.flags": set(),
     "geoflow.records": {"numpy", "shapely"},
     "geoflow.config": {"numpy"},
     "geoflow.hydraulics": {"numpy", "scipy", "numba"},

@@ -166,3 +166,20 @@ def test_manifest_json(tmp_path):
     back = json.loads(path.read_text(encoding="utf-8"))           # reference reader: json
     assert back["reaches"]["r1"] == {"status": "ok", "seconds": 1.5, "max_depth": None, "n": 3}
     assert back["path"] == str(tmp_path)
+
+
+def test_every_flag_word_the_code_can_emit_is_documented():
+    """Each quoted flag word appended in geoflow's code has an entry in geoflow.flags (common practice)."""
+    import re
+    from pathlib import Path
+
+    from geoflow.flags import FLAGS
+    root = Path(__file__).resolve().parents[1] / "geoflow"
+    emitted = set()
+    for path in root.rglob("*.py"):
+        text = path.read_text()
+        emitted |= set(re.findall(r'flags(?:\[\w+\])?\.append\("([a-z_]+)"\)', text))
+        emitted |= set(re.findall(r'f(?:\.append\(|\s*\+=\s*\[)"([a-z_]+)"', text))
+    emitted -= {"critical_assumed"}          # renamed to critical_fallback with the solver kernel
+    assert emitted, "the scan found no flag words"
+    assert emitted <= set(FLAGS), sorted(emitted - set(FLAGS))
