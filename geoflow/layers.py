@@ -147,6 +147,17 @@ def read_landcover(path, crs, class_field: str, layer: str | None = None, bbox=N
     return LandCover(geometries=geoms, classes=classes, path=path, layer=layer, class_field=class_field)
 
 
+def read_polygons(path, crs, layer: str | None = None) -> np.ndarray:
+    """Read the polygons of a layer (no attributes needed), reprojected to ``crs``, repaired if invalid."""
+    path = Path(path)
+    gdf, _ = _read_layer(path, crs, layer, [], _POLYGON_TYPES, "polygon")
+    geoms = shapely.force_2d(np.asarray(gdf.geometry.values, dtype=object))
+    invalid = ~shapely.is_valid(geoms)
+    if np.any(invalid):
+        geoms[invalid] = shapely.make_valid(geoms[invalid])
+    return geoms
+
+
 def _read_layer(path: Path, crs, layer, fields, allowed_types, kind, bbox=None, check: bool = True):
     """Validate and read one layer; return (GeoDataFrame in ``crs``, 'file (layer x)' label)."""
     import geopandas as gpd  # heavy import kept at the edge

@@ -19,8 +19,9 @@ LEFT_FLOODPLAIN, CHANNEL, RIGHT_FLOODPLAIN = 0, 1, 2
 class Section:
     """One cross-section cut across a reach, with ground profile and roughness.
 
-    Arrays: ``station`` and ``elevation`` have m points; ``n``, ``landcover`` and
-    ``part`` describe the m-1 segments between consecutive points.
+    Arrays: ``station`` and ``elevation`` have m points; ``n``, ``landcover``, ``part`` and
+    ``storage`` describe the m-1 segments between consecutive points. ``line`` may be a
+    polyline (a dog-leg); stations are distances along it.
     """
 
     reach_id: str
@@ -33,6 +34,7 @@ class Section:
     landcover: np.ndarray = field(default=None)  # (m-1,) land-cover class name per segment
     part: np.ndarray = field(default=None)       # (m-1,) int8: LEFT_FLOODPLAIN / CHANNEL / RIGHT_FLOODPLAIN
     flags: tuple[str, ...] = ()
+    storage: np.ndarray = field(default=None)    # (m-1,) bool: holds water but carries no flow (None: all convey)
 
     @property
     def channel_edges(self) -> tuple[float, float]:
@@ -57,3 +59,4 @@ class ReachGeometry:
     sections: tuple[Section, ...]
     lengths: np.ndarray        # (N-1, 3) m from section i to i+1: left floodplain, channel, right floodplain
     warnings: tuple[str, ...] = ()
+    valley_axis: LineString | None = None    # the smoothed valley axis the floodplain legs are normal to

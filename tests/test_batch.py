@@ -168,7 +168,9 @@ def test_reach_with_broken_geometry_fails_alone(tmp_path, capsys):
 
 
 def test_sections_of_different_reaches_that_cross_are_reported(tmp_path):
-    """Two reaches whose centrelines cross at right angles: their sections must cross (shapely)."""
+    """Two reaches whose centrelines cross at right angles. Automatic sections stay in their own
+    reach's area, so none cross (shapely); user-drawn lines of r2 that cross r1's sections are
+    reported, one entry per crossing pair (counted independently with shapely)."""
     from shapely.geometry import LineString
     v = multi_valley(tmp_path, n_reaches=2, length=400.0)
     gdf = gpd.read_file(v.centrelines)
@@ -178,6 +180,18 @@ def test_sections_of_different_reaches_that_cross_are_reported(tmp_path):
     text = config_for(v, tmp_path / "c", "out_c").read_text().replace("spacing = 50.0", "spacing = 20.0")
     cfg = v.dem.parent / "c2.toml"
     cfg.write_text(text.replace("[reaches]", "[reaches]\ncheck_direction = false"))
+    res = run(cfg)
+    assert res.crossings == []
+    secs = gpd.read_file(res.paths["sections"], layer="sections")
+    geoms, rid = secs.geometry.values, secs.reach_id.to_numpy()
+    assert [(i, j) for i in range(len(geoms)) for j in range(i + 1, len(geoms))
+            if rid[i] != rid[j] and geoms[i].intersects(geoms[j])] == []
+    lines = gpd.GeoDataFrame({"reach_id": ["r2"] * 3}, crs=gdf.crs, geometry=[
+        LineString([(x0 + 160.0 + 30 * k, y0 + 30.0 - 10 * k), (x0 + 240.0 - 30 * k, y0 + 30.0 - 10 * k)])
+        for k in range(3)])
+    lines.to_file(v.dem.parent / "xs.gpkg", driver="GPKG")
+    cfg.write_text(cfg.read_text().replace("width = 100.0", 'width = 100.0\nlines = "xs.gpkg"')
+                   .replace('output_dir = "out_c"', 'output_dir = "out_d"'))
     res = run(cfg)
     secs = gpd.read_file(res.paths["sections"], layer="sections")
     a, b = secs[secs.reach_id == "r1"].geometry.values, secs[secs.reach_id == "r2"].geometry.values

@@ -24,6 +24,7 @@ class Inputs:
     user_lines: dict = field(default_factory=dict)   # reach_id -> [LineString] user section lines
     warnings: dict = field(default_factory=dict)     # reach_id -> [str] (e.g. direction reversed)
     unusable: dict = field(default_factory=dict)     # reach_id -> why its centreline cannot be used
+    storage_areas: object = None                     # polygons that carry no flow ([sections] storage_areas)
 
 
 def open_inputs(cfg: Config) -> Inputs:
@@ -51,7 +52,11 @@ def open_inputs(cfg: Config) -> Inputs:
         if unknown:
             raise ConfigError(f"{cfg.sections.lines}: section lines name reach(es) {', '.join(map(repr, unknown))} "
                               f"that are not in {cfg.reaches.centrelines.name}; fix the {cfg.reaches.id_field!r} values")
-    return Inputs(dem=dem, reaches=tuple(reaches), cover=cover, user_lines=user, warnings=warnings, unusable=bad)
+    storage = None
+    if cfg.sections.storage_areas is not None:
+        storage = layers.read_polygons(cfg.sections.storage_areas, dem.crs, layer=cfg.sections.storage_areas_layer)
+    return Inputs(dem=dem, reaches=tuple(reaches), cover=cover, user_lines=user, warnings=warnings, unusable=bad,
+                  storage_areas=storage)
 
 
 def _oriented(rid: str, line, dem, warnings: dict):

@@ -9,6 +9,7 @@ import dataclasses
 
 import numpy as np
 import pandas as pd
+import shapely
 from shapely.geometry import Point
 
 from .. import roughness, sections
@@ -22,23 +23,92 @@ from .inputs import Inputs
 
 
 def build_geometry(cfg: Config, inputs: Inputs, reach_id: str, line) -> ReachGeometry:
-    """Cut (or take the user's) cross-sections of one reach, sample them, give each segment its n."""
+    """Cut (or take the user's) cross-sections of one reach, sample them, give each segment its n.
+
+    Automatic sections follow the floodplain flow (dog-legs where they reach beyond the meander
+    belt), stay inside the reach's own part of the valley floor (:mod:`geoflow.sections.territory`)
+    and off narrow raised strips (roads, embankments).
+    """
     sc = cfg.sections.for_reach(reach_id)
     if reach_id in inputs.user_lines:
         geom = sections.sections_from_lines(reach_id, line, inputs.user_lines[reach_id], inputs.dem,
                                             sample_step=sc.sample_step, source=cfg.sections.lines)
     else:
-        # A section stops short of other reaches' centrelines, except those of tributaries that join
-        # this reach (their mouth lies in this reach's floodplain, which carries their flow too).
-        feeders = {rid for rid, target in junction_order(cfg, [r for r, _ in inputs.reaches]).items()
-                   if target == reach_id}
-        others = {rid: other for rid, other in inputs.reaches if rid != reach_id and rid not in feeders}
-        geom = sections.cut_sections(reach_id, line, inputs.dem, sc.spacing, sc.width, sample_step=sc.sample_step,
-                                     others=others, rise=sc.rise)
+        shared = layout_inputs(cfg, inputs)
+        geom = shared.drafts.get(reach_id) or _cut(cfg, inputs, shared, reach_id, line, shared.territory)
+    if inputs.storage_areas is not None and len(inputs.storage_areas):
+        geom = roughness.split_at_cover_edges(geom, _Polygons(inputs.storage_areas))
     geom = roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
-                                      default_n=cfg.roughness.default_n)
+                                      default_n=cfg.roughness.default_n, update_lengths=False)
+    geom = sections.mark_storage(geom, inputs.dem, areas=inputs.storage_areas, detect=cfg.sections.detect_storage,
+                                 step=sc.sample_step)
+    geom = dataclasses.replace(geom, lengths=sections.floodplain_lengths(geom))
     notes = tuple(inputs.warnings.get(reach_id, ()))
     return dataclasses.replace(geom, warnings=notes + tuple(geom.warnings)) if notes else geom
+
+
+class _Polygons:
+    """Polygons seen as a land cover for :func:`geoflow.roughness.split_at_cover_edges` (edges only)."""
+
+    def __init__(self, geometries):
+        self.geometries = np.asarray(geometries, dtype=object)
+        self.tree = shapely.STRtree(self.geometries)
+
+
+def _cut(cfg: Config, inputs: Inputs, shared, reach_id: str, line, territory):
+    sc = cfg.sections.for_reach(reach_id)
+    return sections.cut_sections(reach_id, line, inputs.dem, sc.spacing, sc.width, sample_step=sc.sample_step,
+                                 rise=sc.rise, layout="auto", channel=shared.channel, territory=territory,
+                                 strips=shared.strips)
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class LayoutInputs:
+    """What every reach's section layout shares: channel polygons, narrow strips, the territories,
+    and the sections of the tributaries (cut first: their footprints are part of the territories)."""
+
+    channel: np.ndarray
+    strips: np.ndarray
+    territory: sections.Territory
+    drafts: dict
+
+
+_LAYOUT_CACHE: dict[int, tuple[Inputs, LayoutInputs]] = {}
+
+
+def layout_inputs(cfg: Config, inputs: Inputs) -> LayoutInputs:
+    """Channel and strip polygons from the land cover and the reaches' territories (cached per inputs)."""
+    hit = _LAYOUT_CACHE.get(id(inputs))
+    if hit is not None and hit[0] is inputs:
+        return hit[1]
+    classes = np.asarray(inputs.cover.classes).astype(str)
+    geoms = np.asarray(inputs.cover.geometries, dtype=object)
+    channel = geoms[classes == str(cfg.roughness.channel_class)]
+    strips = sections.narrow_strips(geoms, classes, skip=(cfg.roughness.channel_class,))
+    ids = [rid for rid, _ in inputs.reaches]
+    flows = dict(junction_order(cfg, ids))
+    scales = {rid: 0.5 * cfg.sections.for_reach(rid).width for rid in ids}
+    half = {rid: sections.typical_channel_half_width(g, channel) for rid, g in inputs.reaches}
+    step = {rid: cfg.sections.for_reach(rid).sample_step or inputs.dem.cell_size for rid in ids}
+    margin = {rid: float(sections.bend_distances(np.array([[half[rid], half[rid]]]), step[rid])[0, 0] - half[rid])
+              for rid in ids}
+    territory = sections.make_territory(inputs.reaches, scales, channel, flows, half, margin)
+    out = LayoutInputs(channel=channel, strips=strips, territory=territory, drafts={})
+    lines = dict(inputs.reaches)
+    for i in np.argsort(territory.rank, kind="stable"):
+        rid = territory.names[i]
+        if territory.receiving[i] < 0 or rid in inputs.user_lines:
+            continue
+        try:
+            draft = _cut(cfg, inputs, out, rid, lines[rid], territory)
+        except GeoflowError:
+            continue                       # the reach fails on its own when it is built
+        territory = territory.with_footprint(int(i), [s.line for s in draft.sections])
+        out.drafts[rid] = draft
+    out = dataclasses.replace(out, territory=territory)
+    _LAYOUT_CACHE.clear()
+    _LAYOUT_CACHE[id(inputs)] = (inputs, out)
+    return out
 
 
 def discharge_along(event: Event, reach_id: str, chainage: np.ndarray) -> np.ndarray:
@@ -81,7 +151,7 @@ def build_tables(geom: ReachGeometry, cfg: Config | None = None, discharge: floa
     """
     classes = {} if cfg is None else cfg.roughness.classes
     return [build_table(s.station, s.elevation, roughness.n_at_discharge(s, classes, discharge), s.part,
-                        n_depth=roughness.n_by_depth_table(s, classes),
+                        n_depth=roughness.n_by_depth_table(s, classes), storage=s.storage,
                         name=f"reach {geom.reach_id!r} section {s.section_id}")
             for s in geom.sections]
 

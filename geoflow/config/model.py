@@ -49,6 +49,9 @@ class SectionsConfig:
     rise: float | None = None          # adaptive width: each side ends where ground is this far above the bed
     lines: Path | None = None          # user-drawn section lines (replace automatic ones for the reaches given)
     lines_layer: str | None = None
+    storage_areas: Path | None = None  # polygons that hold water but carry no flow (storage)
+    storage_areas_layer: str | None = None
+    detect_storage: bool = True        # find the obvious storage (behind embankments, side valleys, pits)
     reaches: Mapping[str, "SectionsConfig"] = field(default_factory=lambda: MappingProxyType({}))
 
     def for_reach(self, reach_id: str) -> "SectionsConfig":
@@ -162,5 +165,6 @@ class Config:
         """
         files = {"config": self.path, "[terrain] dem": self.terrain.dem,
                  "[reaches] centrelines": self.reaches.centrelines, "[roughness] landcover": self.roughness.landcover,
-                 "[roughness] table": self.roughness.table, "[sections] lines": self.sections.lines}
+                 "[roughness] table": self.roughness.table, "[sections] lines": self.sections.lines,
+                 "[sections] storage_areas": self.sections.storage_areas}
         return {k: Path(p) for k, p in files.items() if p is not None}

@@ -166,10 +166,14 @@ def _read_sections(r: _Reader, doc: dict) -> SectionsConfig | None:
     t = r.table(doc, "sections", "[sections]")
     if t is None:
         return None
-    r.known(t, ("spacing", "width", "sample_step", "rise", "lines", "lines_layer", "reaches"), "[sections]")
+    r.known(t, ("spacing", "width", "sample_step", "rise", "lines", "lines_layer", "storage_areas",
+                "storage_areas_layer", "detect_storage", "reaches"), "[sections]")
     base = _read_section_keys(r, t, "[sections]", None)
     lines = r.existing(t, "lines", "[sections]") if "lines" in t else None
     lines_layer = r.value(t, "lines_layer", "[sections]", "string")
+    storage = r.existing(t, "storage_areas", "[sections]") if "storage_areas" in t else None
+    storage_layer = r.value(t, "storage_areas_layer", "[sections]", "string")
+    detect = r.flag(t, "detect_storage", "[sections]", True)
     overrides = {}
     for rid, sub in (r.table(t, "reaches", "[sections.reaches]", required=False) or {}).items():
         where = f"[sections.reaches.{rid}]"
@@ -182,7 +186,8 @@ def _read_sections(r: _Reader, doc: dict) -> SectionsConfig | None:
     if base is None:
         return None
     return SectionsConfig(base.spacing, base.width, base.sample_step, rise=base.rise, lines=lines,
-                          lines_layer=lines_layer, reaches=MappingProxyType(overrides))
+                          lines_layer=lines_layer, storage_areas=storage, storage_areas_layer=storage_layer,
+                          detect_storage=detect, reaches=MappingProxyType(overrides))
 
 
 def _read_section_keys(r: _Reader, t: dict, where: str, base: SectionsConfig | None) -> SectionsConfig | None:

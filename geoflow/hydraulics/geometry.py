@@ -18,6 +18,12 @@ end: it bounds the area and its wetted height counts in P (with the end segment'
 subdivision); ``not_contained`` reports it. Water in low ground that is not connected to the
 channel counts as flow area (no ineffective-area rule).
 
+Storage: ``build_table(..., storage=mask (m-1,))`` marks floodplain segments that hold water but
+carry no flow. They form subdivisions of their own whose numerator N = sum P n^1.5 is zero, so
+their conveyance is zero (K = A (A/N)^(2/3) is taken as 0 where N = 0) while their area and top
+width count as usual. The velocity head alpha V^2/2g = Q^2 sum(K_i^3/A_i^2) / (2 g K_t^3) does not
+depend on the storage area. Channel segments are never storage.
+
 Stage-dependent n: ``build_table(..., n_depth=(depths (k,), n_values (k, m-1)))`` gives n per
 segment as a piecewise-linear function of the local flow depth over that segment (its wet
 area / wet top width; for a vertical segment the depth at its foot), clamped outside ``depths``. n that varies by discharge is supported by
@@ -82,6 +88,7 @@ class SectionTable:
     levels: np.ndarray           # (L,) ascending trial water-surface elevations
     lookup: LevelTable | None    # None with a depth law for n (exact clipping is used then)
     flow_at_levels: tuple = ()   # (area, conveyance, alpha (L,), part conveyance (L, 3))
+    storage: np.ndarray | None = None  # (m-1,) bool: segments with area but no conveyance
 
     @property
     def at_levels(self) -> SectionProperties:
@@ -104,23 +111,25 @@ class SectionTable:
 
 
 def build_table(station, elevation, n, part, *, n_depth=None, name="section",
-                min_levels=60, extra_height=None) -> SectionTable:
+                min_levels=60, extra_height=None, storage=None) -> SectionTable:
     """Check a ground profile and precompute its property table.
 
     ``station`` must be non-decreasing (equal stations make a vertical segment), ``n`` > 0,
     ``part`` codes 0/1/2. ``extra_height`` (m, default max(relief, 1)) sets how far the table
-    levels extend above the highest ground point (walls are added there).
+    levels extend above the highest ground point (walls are added there). ``storage``: optional
+    (m-1,) bool mask of segments without conveyance (module notes).
     """
     x, z, nn, pp = _checked_arrays(station, elevation, n, part, name)
     nd = _checked_n_depth(n_depth, x.size - 1, name)
-    sub, sub_part = _subdivisions(nn, pp, nd)
+    store = _checked_storage(storage, pp, name)
+    sub, sub_part = _subdivisions(nn, pp, nd, store)
     relief = max(float(z.max() - z.min()), 1e-3)
     extra = max(relief, 1.0) if extra_height is None else float(extra_height)
     levels = _levels(z, relief, int(min_levels), extra)
     to_part = np.zeros((sub_part.size, N_PARTS))
     to_part[np.arange(sub_part.size), sub_part] = 1.0
-    lookup = None if nd is not None else build_level_table(x, z, nn ** 1.5, sub, to_part, levels)
-    table = SectionTable(name, x, z, nn, pp, sub, sub_part, nd, levels, lookup)
+    lookup = None if nd is not None else build_level_table(x, z, _n15(nn, store), sub, to_part, levels)
+    table = SectionTable(name, x, z, nn, pp, sub, sub_part, nd, levels, lookup, storage=store)
     object.__setattr__(table, "flow_at_levels", flow_state(table, levels))
     return table
 
@@ -151,6 +160,23 @@ def _checked_arrays(station, elevation, n, part, name):
     return x, z, nn, pp.astype(np.int8)
 
 
+def _checked_storage(storage, part, name):
+    """The storage mask as bool (m-1,) with channel segments cleared, or None."""
+    if storage is None:
+        return None
+    mask = np.asarray(storage, dtype=bool).ravel()
+    if mask.size != part.size:
+        raise GeometryError(f"section {name!r}: storage needs one value per segment ({part.size}), got {mask.size}")
+    mask = mask & (part != CHANNEL_CODE)
+    return mask if mask.any() else None
+
+
+def _n15(n, storage):
+    """n^1.5 per segment, zero on storage segments (no conveyance)."""
+    n15 = n ** 1.5
+    return n15 if storage is None else np.where(storage, 0.0, n15)
+
+
 def _checked_n_depth(n_depth, nseg, name):
     if n_depth is None:
         return None
@@ -163,11 +189,13 @@ def _checked_n_depth(n_depth, nseg, name):
     return depths, values
 
 
-def _subdivisions(n, part, n_depth):
+def _subdivisions(n, part, n_depth, storage=None):
     """Subdivision index per segment: break where the part changes, and inside an overbank
-    where n (or its depth law) changes; the channel part stays one subdivision."""
+    where n (or its depth law) or storage changes; the channel part stays one subdivision."""
     n_cols = n[None, :] if n_depth is None else np.vstack([n[None, :], n_depth[1]])
     n_change = np.any(n_cols[:, 1:] != n_cols[:, :-1], axis=0)
+    if storage is not None:
+        n_change = n_change | (storage[1:] != storage[:-1])
     brk = (part[1:] != part[:-1]) | (n_change & (part[1:] != CHANNEL_CODE))
     sub = np.concatenate([[0], np.cumsum(brk)]).astype(np.intp)
     first = np.concatenate([[True], brk])
@@ -236,7 +264,7 @@ def _cached(table):
         to_part = np.zeros((nsub, N_PARTS))
         to_part[np.arange(nsub), table.subdivision_part] = 1.0
         geom = _segment_geometry(table.station, table.elevation)
-        cache = (onehot, to_part, geom, table.n ** 1.5)
+        cache = (onehot, to_part, geom, _n15(table.n, table.storage))
         object.__setattr__(table, "_cache", cache)
     return cache
 
@@ -247,7 +275,7 @@ def properties(table: SectionTable, wse) -> SectionProperties:
     w = np.asarray(wse, dtype=float).ravel()
     onehot, to_part, geom, n15 = _cached(table)
     area, top, perim, moment = wet_segments(table.station, table.elevation, w, geom)
-    n15 = n15 if table.n_depth is None else _segment_n(table, w, area, top) ** 1.5
+    n15 = n15 if table.n_depth is None else _n15(_segment_n(table, w, area, top), table.storage)
     left = np.maximum(w - table.elevation[0], 0.0)
     right = np.maximum(w - table.elevation[-1], 0.0)
     perim[:, 0] += left
@@ -284,7 +312,7 @@ def _assemble(table, w, sub_a, sub_p, sub_ns, t_t, moment):
     with np.errstate(divide="ignore", invalid="ignore"):
         sub_n = (sub_ns / sub_p) ** (2.0 / 3.0)
         sub_k = sub_a * (sub_a / sub_p) ** (2.0 / 3.0) / sub_n
-        sub_k[~((sub_a > 0) & (sub_p > 0))] = 0.0
+        sub_k[~((sub_a > 0) & (sub_p > 0) & (sub_ns > 0))] = 0.0     # storage: N = 0, no conveyance
         a_t, k_t = sub_a.sum(axis=1), sub_k.sum(axis=1)
         # alpha = sum u_i v_i^2, beta = sum u_i v_i with u_i = K_i/K_t and v_i = V_i/V_mean =
         # (K_i/A_i)/(K_t/A_t): the REFERENCES 3.1 formulas in scale-free form (no underflow)

@@ -44,7 +44,7 @@ class Surface:
         self.quads = np.array(quads, dtype=object)
         self.index = np.array(index, dtype=np.int64)
         self.bounds = shapely.bounds(self.quads) if quads else np.zeros((0, 4))
-        self.ends = np.array([_end_points(s.line) for s in sections])   # (N, 4): x0, y0, x1, y1
+        self.pieces = _pieces([s.line for s in sections])   # (N, P, 4): x0, y0, x1, y1 of each straight piece
 
     def touching(self, left: float, bottom: float, right: float, top: float) -> np.ndarray:
         """Indices (into ``quads``) of the quads whose bounds meet the box."""
@@ -73,12 +73,13 @@ class Surface:
         return out
 
     def _weights_and_values(self, gt, row_off, col_off, ncols, part, idx) -> np.ndarray:
-        """Inverse-distance (linear) blend of sections idx and idx+1 at the cells ``part``."""
+        """Inverse-distance (linear) blend of sections idx and idx+1 at the cells ``part`` (distances
+        to the section polylines, so dog-leg sections blend like straight ones)."""
         rows, cols = np.divmod(part, ncols)
         x = gt.c + gt.a * (cols + col_off + 0.5)
         y = gt.f + gt.e * (rows + row_off + 0.5)
-        d_up = point_segment_distance(x, y, self.ends[idx])
-        d_dn = point_segment_distance(x, y, self.ends[idx + 1])
+        d_up = point_polyline_distance(x, y, self.pieces[idx])
+        d_dn = point_polyline_distance(x, y, self.pieces[idx + 1])
         total = d_up + d_dn
         w_up = np.divide(d_dn, total, out=np.ones_like(total), where=total > 0)
         return w_up * self.values[:, idx] + (1.0 - w_up) * self.values[:, idx + 1]
@@ -91,10 +92,23 @@ def polygonal(geom):
     return shapely.union_all(parts) if len(parts) else None
 
 
-def _end_points(line) -> tuple[float, float, float, float]:
-    """First and last vertex of a section line (sections are straight 2-point lines)."""
-    c = np.asarray(line.coords)
-    return float(c[0, 0]), float(c[0, 1]), float(c[-1, 0]), float(c[-1, 1])
+def _pieces(lines) -> np.ndarray:
+    """(N, P, 4) straight pieces of each section line (a dog-leg has up to three), padded by
+    repeating the last piece (which leaves the minimum distance unchanged)."""
+    coords = [np.asarray(g.coords)[:, :2] for g in lines]
+    most = max(len(c) for c in coords) - 1
+    out = np.empty((len(coords), most, 4))
+    for k, c in enumerate(coords):
+        seg = np.hstack((c[:-1], c[1:]))
+        out[k, :len(seg)] = seg
+        out[k, len(seg):] = seg[-1]
+    return out
+
+
+def point_polyline_distance(x: np.ndarray, y: np.ndarray, pieces: np.ndarray) -> np.ndarray:
+    """Euclidean distance from points (x, y) to polylines given as pieces (K, P, 4), row by row."""
+    d = np.stack([point_segment_distance(x, y, pieces[:, p]) for p in range(pieces.shape[1])])
+    return d.min(axis=0)
 
 
 def point_segment_distance(x: np.ndarray, y: np.ndarray, seg: np.ndarray) -> np.ndarray:

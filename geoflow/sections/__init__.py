@@ -9,14 +9,25 @@ Pure geometry on shapely/numpy: the DEM is reached only through ``dem.sample(x, 
 - ``orient``: the centreline's drawn direction checked against the DEM;
 - ``banks``: channel edges from breaks in the ground slope;
 - ``lengths``: channel and floodplain reach lengths between neighbouring sections;
+- ``valley``, ``valleycut``, ``doglegs``, ``channel``: dog-leg sections that follow the valley;
+- ``territory``: which reach owns each point of the valley floor (reaches that meet);
+- ``strips``: sections kept off roads and embankments; ``storage``: parts that carry no flow;
+- ``stations``: chainages, the channel frame and where sections are sampled;
 - ``common``: sampling, gap filling and checks shared by the above.
 """
 from .banks import detect_banks
+from .channel import bend_distances, typical_channel_half_width
 from .common import fill_small_gaps
-from .cut import cut_sections, grid_stations
-from .lengths import floodplain_lengths
+from .cut import LAYOUTS, cut_sections
+from .lengths import floodplain_lengths, flow_path_lengths
 from .orient import orient_centreline
+from .stations import grid_stations
+from .storage import mark_storage
+from .strips import narrow_strips
+from .territory import Territory, make_territory
 from .userlines import sections_from_lines
+from .valley import Valley, valley_of
 
-__all__ = ["cut_sections", "detect_banks", "fill_small_gaps", "grid_stations", "orient_centreline",
-           "floodplain_lengths", "sections_from_lines"]
+__all__ = ["LAYOUTS", "Territory", "Valley", "bend_distances", "cut_sections", "detect_banks", "fill_small_gaps", "floodplain_lengths",
+           "flow_path_lengths", "grid_stations", "make_territory", "mark_storage", "narrow_strips", "orient_centreline",
+           "sections_from_lines", "typical_channel_half_width", "valley_of"]

@@ -30,6 +30,10 @@ from ..errors import GeometryError
 from ..records import ReachGeometry
 from .common import build_sections, check_inside, check_positive, sample_many
 from .sidelimits import adaptive_halves, confluence_halves
+from .stations import chainages, frame, grid_stations, stations_about_centre
+from .valleycut import cut_valley_sections
+
+LAYOUTS = ("straight", "valley", "auto")
 
 _SHORTEN_FACTOR = 0.98       # shortened half-width = this x distance from centre to crossing
 _MIN_WIDTH_FRACTION = 0.1    # refuse repairs that leave less than this fraction of the width
@@ -38,7 +42,8 @@ _MIN_WIDTH_FRACTION = 0.1    # refuse repairs that leave less than this fraction
 def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, width: float,
                  sample_step: float | None = None, smoothing: float | None = None,
                  repair: bool = True, others=None, rise: float | None = None,
-                 rise_margin: float | None = None, follow_grid: bool = True) -> ReachGeometry:
+                 rise_margin: float | None = None, follow_grid: bool = True, layout: str = "straight",
+                 channel=None, territory=None, strips=None) -> ReachGeometry:
     """Cut cross-sections every ``spacing`` m along ``centreline`` and sample the ground.
 
     Sections sit at chainage 0, spacing, 2·spacing, ... and at the downstream end L (if the
@@ -59,6 +64,17 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
 
     ``lengths`` (N-1, 3): channel = chainage difference; left/right floodplain = distance
     between the mid-points of the left (right) halves of consecutive section lines.
+
+    ``layout``: ``"straight"`` (the above, the default), ``"valley"`` (dog-legs: across the
+    channel perpendicular to it, then on each floodplain perpendicular to the valley axis) or
+    ``"auto"`` (dog-legs where the sections reach beyond the meander belt, else straight); see
+    :mod:`geoflow.sections.valleycut`. With those: ``channel`` (channel land-cover polygons)
+    places the bends just beyond the channel edges (else the ground's breaks in slope do);
+    ``territory`` (:class:`geoflow.sections.territory.Territory`) keeps the sections inside
+    this reach's part of the valley floor (``others`` is not used then); ``strips`` (narrow
+    land-cover polygons such as roads) and the DEM's ridges keep sections from running along
+    embankments. Floodplain lengths are then measured between the floodplain legs along the
+    flow (:func:`geoflow.sections.lengths.flow_path_lengths`).
     """
     rid = str(reach_id)
     step = float(sample_step) if sample_step is not None else float(dem.cell_size)
@@ -68,14 +84,19 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
     line = shapely.force_2d(centreline)
     check_inside(rid, line, dem.bounds)
     length = float(line.length)
-    chain = _chainages(rid, length, float(spacing))
     h = float(smoothing) if smoothing is not None else 0.5 * float(spacing)
-    centre, left_normal = _frame(rid, line, chain, h, min(max(step, 0.1 * float(spacing)), h))
+    if layout != "straight":
+        if layout not in LAYOUTS:
+            raise GeometryError(f"reach {rid}: section layout {layout!r} is not one of {', '.join(LAYOUTS)}")
+        return cut_valley_sections(rid, line, dem, float(spacing), float(width), step, h, repair, rise, rise_margin,
+                                   follow_grid, layout, channel, territory, strips)
+    chain = chainages(rid, length, float(spacing))
+    centre, left_normal = frame(rid, line, chain, h, min(max(step, 0.1 * float(spacing)), h))
     flags: list[list[str]] = [[] for _ in chain]
     warnings: list[str] = []
     half = _side_lengths(rid, line, chain, centre, left_normal, dem, float(spacing), float(width), step,
                          repair, others, rise, rise_margin, flags, warnings)
-    stations = [_stations_about_centre(hl, hr, step) for hl, hr in half]
+    stations = [stations_about_centre(hl, hr, step) for hl, hr in half]
     left_end = centre + half[:, :1] * left_normal
     right_end = centre - half[:, 1:] * left_normal
     if follow_grid and getattr(dem, "transform", None) is not None and step <= dem.cell_size * (1 + 1e-9):
@@ -110,69 +131,6 @@ def _side_lengths(rid, line, chain, centre, normal, dem, spacing, width, step, r
     return half
 
 
-def grid_stations(transform, start: np.ndarray, end: np.ndarray, stations: np.ndarray, step: float,
-                  centre_station: float | None = None) -> np.ndarray:
-    """Stations where the section crosses a row or column of DEM cell centres.
-
-    Used when ``step`` is the DEM cell size or finer (the default): with ``step`` equal to the
-    cell size the crossings replace the regular stations (they are never more than a cell
-    apart), keeping both ends and the centreline station; with a finer ``step`` they are added
-    to the regular stations.
-
-    Bilinear interpolation makes the DEM surface a patchwork whose creases run along the lines
-    joining cell centres; along a straight section the ground is smooth between two crossings
-    of those lines and kinks at them. Sampling only every ``step`` cuts across those kinks (at
-    a channel toe this loses area: 0.25 m2 of 28 m2 in a 10 m trapezoid on a 1 m DEM); adding
-    the crossings follows the DEM's own surface. Stations closer than 1 % of ``step`` to an
-    existing one are not added.
-    """
-    total = float(stations[-1])
-    cell = max(abs(transform.a), abs(transform.e))
-    if step >= cell * (1 - 1e-9):
-        keep = [0.0, total] + ([float(centre_station)] if centre_station is not None else [])
-        stations = np.unique(np.array(keep))
-    extra = []
-    for axis, origin, size in ((0, transform.c, transform.a), (1, transform.f, transform.e)):
-        a, b = float(start[axis]), float(end[axis])
-        if abs(b - a) < 1e-12:
-            continue
-        lo, hi = sorted(((a - origin) / size - 0.5, (b - origin) / size - 0.5))
-        idx = np.arange(np.ceil(lo), np.floor(hi) + 1)
-        t = ((origin + (idx + 0.5) * size) - a) / (b - a)
-        extra.append(t * total)
-    if not extra:
-        return stations
-    cand = np.sort(np.concatenate(extra))
-    cand = cand[(cand > 0) & (cand < total)]
-    near = np.min(np.abs(cand[:, None] - stations[None, :]), axis=1) < 0.01 * step if cand.size else cand
-    merged = np.union1d(stations, cand[~near])
-    keep = np.concatenate(([True], np.diff(merged) > 0.01 * step))   # drop near-duplicate crossings
-    keep[-1] = True
-    return _fill_gaps(merged[keep], step)
-
-
-def _fill_gaps(stations: np.ndarray, step: float) -> np.ndarray:
-    """Evenly spaced extra stations wherever two neighbours are more than ``step`` apart."""
-    gaps = np.diff(stations)
-    wide = np.flatnonzero(gaps > step * (1 + 1e-9))
-    if wide.size == 0:
-        return stations
-    extra = [np.linspace(stations[i], stations[i + 1], int(np.ceil(gaps[i] / step)) + 1)[1:-1] for i in wide]
-    return np.union1d(stations, np.concatenate(extra))
-
-
-def _stations_about_centre(left: float, right: float, step: float) -> np.ndarray:
-    """Stations 0 .. left + right with the centreline point (station ``left``) always sampled.
-
-    Each side is divided evenly into steps of at most ``step`` (at least 2 segments in all).
-    """
-    n_l = int(math.ceil(left / step - 1e-9)) if left > 0 else 0
-    n_r = int(math.ceil(right / step - 1e-9)) if right > 0 else 0
-    if n_l + n_r < 2:
-        return np.linspace(0.0, left + right, 3)
-    return np.concatenate((np.linspace(0.0, left, n_l + 1), left + np.linspace(0.0, right, n_r + 1)[1:]))
-
-
 def _check_width_left(rid: str, chain, half: np.ndarray, width: float) -> None:
     total = half.sum(axis=1)
     bad = np.flatnonzero(total < _MIN_WIDTH_FRACTION * width)
@@ -182,38 +140,6 @@ def _check_width_left(rid: str, chain, half: np.ndarray, width: float) -> None:
             f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) keeps only {total[k]:.1f} m between other "
             "reaches' centrelines; end this reach's centreline before the junction or reduce [sections] width"
         )
-
-
-def _chainages(rid: str, length: float, spacing: float) -> np.ndarray:
-    """0, spacing, 2·spacing, ... plus the downstream end L (merging a last gap < spacing/10)."""
-    if length < spacing:
-        raise GeometryError(
-            f"reach {rid}: centreline is {length:.1f} m long, shorter than [sections] spacing = {spacing:g} m, "
-            "so fewer than 2 sections fit; reduce the spacing or drop the reach"
-        )
-    chain = np.arange(0.0, length, spacing)
-    if length - chain[-1] < 0.1 * spacing and chain.size > 1:
-        chain = chain[:-1]
-    return np.append(chain, length)
-
-
-def _frame(rid: str, line: LineString, chain: np.ndarray, smoothing: float, h_min: float):
-    """Centre points (N, 2) and unit LEFT normals (N, 2) from the smoothed chord direction."""
-    length = float(line.length)
-    h = np.clip(np.minimum(chain, length - chain), h_min, smoothing)
-    a = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(chain - h, 0.0, length)))
-    b = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(chain + h, 0.0, length)))
-    centre = shapely.get_coordinates(shapely.line_interpolate_point(line, chain))
-    d = b - a
-    norm = np.hypot(d[:, 0], d[:, 1])
-    if np.any(norm <= 1e-9 * max(length, 1.0)):
-        k = int(np.flatnonzero(norm <= 1e-9 * max(length, 1.0))[0])
-        raise GeometryError(
-            f"reach {rid}: flow direction undefined at section {k} (chainage {chain[k]:.1f} m), the centreline "
-            "doubles back on itself; redraw it or change [sections] spacing"
-        )
-    t = d / norm[:, None]
-    return centre, np.column_stack((-t[:, 1], t[:, 0]))  # rotate the flow direction +90 deg: left
 
 
 def _crossings(centre: np.ndarray, normal: np.ndarray, half: np.ndarray):

@@ -30,26 +30,38 @@ SHORTEN_FACTOR = 0.98        # shortened side = this x distance from the centre 
 
 
 def adaptive_halves(dem, centre: np.ndarray, normal: np.ndarray, max_half: float, step: float,
-                    rise: float, bed_window: float, margin: float) -> tuple[np.ndarray, np.ndarray]:
+                    rise: float, bed_window: float, margin: float, sides=None) -> tuple[np.ndarray, np.ndarray]:
     """(N, 2) half-widths [left, right] reaching ``rise`` m above the bed, and (N, 2) capped mask.
 
-    The ground is sampled every ``step`` m (or a little less) along the full-width line. On each
+    The ground is sampled every ``step`` m (or a little less) along the full-width line (or,
+    with ``sides`` (:class:`geoflow.sections.doglegs.Sides`), along each side's path). On each
     side the first sample at or above bed + rise is found and the crossing placed by linear
     interpolation from the sample before it; the side ends ``margin`` m beyond, capped at
     ``max_half``. NaN ground never counts as reaching the level.
     """
     k = max(int(math.ceil(max_half / step - 1e-9)), 1)
-    offs = np.linspace(-max_half, max_half, 2 * k + 1)          # + is left (along the normal)
-    d = offs[1] - offs[0]
-    x = centre[:, 0, None] + offs[None, :] * normal[:, 0, None]
-    y = centre[:, 1, None] + offs[None, :] * normal[:, 1, None]
-    z = np.vstack(sample_many(dem, list(x), list(y)))
-    near = np.abs(offs) <= max(bed_window, d) + 1e-9
-    bed = np.where(near[None, :] & np.isfinite(z), z, np.inf).min(axis=1)
+    out = np.linspace(0.0, max_half, k + 1)                      # distances from the centre, outwards
+    d = out[1] - out[0]
+    if sides is None:
+        offs = np.concatenate((-out[:0:-1], out))               # + is left (along the normal)
+        x = centre[:, 0, None] + offs[None, :] * normal[:, 0, None]
+        y = centre[:, 1, None] + offs[None, :] * normal[:, 1, None]
+        z = np.vstack(sample_many(dem, list(x), list(y)))
+        z_sides = (z[:, k:], z[:, k::-1])
+    else:
+        pts = sides.points(np.broadcast_to(out, sides.length.shape + out.shape))
+        zz = sample_many(dem, [pts[..., 0].ravel()], [pts[..., 1].ravel()])[0].reshape(pts.shape[:3])
+        z_sides = (zz[:, 0], zz[:, 1])
+    near = out <= max(bed_window, d) + 1e-9
+    bed = np.minimum(*(np.where(near[None, :] & np.isfinite(zz), zz, np.inf).min(axis=1) for zz in z_sides))
     bed[np.isinf(bed)] = np.nan
-    target = bed + float(rise)
-    halves, capped = np.empty((len(z), 2)), np.empty((len(z), 2), dtype=bool)
-    for side, zz in enumerate((z[:, k:], z[:, k::-1])):         # outwards from the centre
+    return _rise_rule(z_sides, bed + float(rise), d, max_half, float(margin))
+
+
+def _rise_rule(z_sides, target, d, max_half, margin) -> tuple[np.ndarray, np.ndarray]:
+    """Half-widths and capped mask from ground sampled outwards on each side (see adaptive_halves)."""
+    halves, capped = np.empty((len(target), 2)), np.empty((len(target), 2), dtype=bool)
+    for side, zz in enumerate(z_sides):                         # outwards from the centre
         with np.errstate(invalid="ignore"):
             above = zz >= target[:, None]
         above[:, 0] = False
@@ -60,7 +72,7 @@ def adaptive_halves(dem, centre: np.ndarray, normal: np.ndarray, max_half: float
         with np.errstate(invalid="ignore", divide="ignore"):
             frac = np.clip((target - z0) / (z1 - z0), 0.0, 1.0)
         frac = np.where(np.isfinite(frac), frac, 1.0)
-        reach = (first - 1 + frac) * d + float(margin)
+        reach = (first - 1 + frac) * d + margin
         halves[:, side] = np.where(found, np.minimum(reach, max_half), max_half)
         capped[:, side] = ~found | (reach >= max_half)
     return halves, capped
