@@ -16,19 +16,11 @@ import shapely
 from rasterio.transform import from_origin
 from scipy.spatial import cKDTree
 from shapely.geometry import LineString, box
-from valleys import CRS, Valley, plain_config
+from valleys import CRS, Valley, plain_config, sine_generated
 
 from geoflow.batch import run
 
 B, Z, H, S, N, Q = 10.0, 2.0, 4.0, 0.001, 0.03, 25.0
-
-
-def sine_generated(length, wavelength, omega, step=1.0):
-    s = np.arange(0.0, length + step, step)
-    theta = omega * np.sin(2 * np.pi * s / wavelength)
-    x = np.concatenate([[0.0], np.cumsum(np.cos(theta[:-1]) * step)])
-    y = np.concatenate([[0.0], np.cumsum(np.sin(theta[:-1]) * step)])
-    return s, x, y, theta
 
 
 def carve(folder, length=1500.0, wavelength=500.0, omega=1.0, margin=90.0):

@@ -164,3 +164,73 @@ discharge = {discharge}
 downstream = {{ type = "normal_depth", slope = {slope} }}
 """)
     return path
+
+
+# ---------------------------------------------------------------- analytic valleys on a grid
+def grid(x0: float, y0: float, width: float, height: float, cell: float):
+    """Cell-centre coordinates (X, Y) of a north-up grid and its affine transform."""
+    ncol, nrow = int(round(width / cell)), int(round(height / cell))
+    transform = from_origin(x0, y0 + nrow * cell, cell, cell)
+    cols, rows = np.meshgrid(np.arange(ncol) + 0.5, np.arange(nrow) + 0.5)
+    return x0 + cols * cell, y0 + nrow * cell - rows * cell, transform
+
+
+def write_dem(path: Path, z: np.ndarray, transform, crs=CRS) -> Path:
+    with rasterio.open(path, "w", driver="GTiff", width=z.shape[1], height=z.shape[0], count=1, dtype="float32",
+                       crs=crs, transform=transform, nodata=-9999.0) as ds:
+        ds.write(z.astype("float32"), 1)
+    return Path(path)
+
+
+def write_reaches(path: Path, lines: dict, crs=CRS) -> Path:
+    gpd.GeoDataFrame({"reach_id": list(lines)}, geometry=list(lines.values()), crs=crs).to_file(
+        path, layer="centrelines", driver="GPKG")
+    return Path(path)
+
+
+def write_cover(path: Path, parts: list, crs=CRS) -> Path:
+    """Land cover from (polygon, class) pairs; later pairs are cut out of earlier ones (no overlaps)."""
+    geoms, names, taken = [], [], None
+    for poly, name in reversed(parts):
+        piece = poly if taken is None else poly.difference(taken)
+        taken = poly if taken is None else taken.union(poly)
+        if not piece.is_empty:
+            geoms.append(piece)
+            names.append(name)
+    gpd.GeoDataFrame({"cover": names}, geometry=geoms, crs=crs).to_file(path, layer="landcover", driver="GPKG")
+    return Path(path)
+
+
+def trapezoid_depth(d, bottom_half: float, side_slope: float, depth: float):
+    """Depth of a trapezoidal channel below the bank top at distance ``d`` from its centreline."""
+    return np.clip(depth - (np.asarray(d) - bottom_half) / side_slope, 0.0, depth)
+
+
+def valley_config(folder: Path, reaches: dict, events: list, boundary: str, classes: dict, extra: str = "",
+                  name: str = "valley", output_dir: str = "out") -> Path:
+    """geoflow.toml for dem.tif / centrelines.gpkg / landcover.gpkg in ``folder``.
+
+    ``reaches``: {reach id: (spacing, width)}; the first is the [sections] default. ``events``:
+    [(name, discharge TOML value)].
+    """
+    first = next(iter(reaches.values()))
+    per = "".join(f"[sections.reaches.{rid}]\nspacing = {s}\nwidth = {w}\n" for rid, (s, w) in reaches.items())
+    cls = "".join(f"[roughness.classes.{k}]\nn = {v}\n" for k, v in classes.items())
+    ev = "".join(f'[[events]]\nname = "{n}"\ndischarge = {q}\n' for n, q in events)
+    text = (f'[run]\nname = "{name}"\noutput_dir = "{output_dir}"\n[terrain]\ndem = "dem.tif"\n'
+            f'[reaches]\ncentrelines = "centrelines.gpkg"\n[sections]\nspacing = {first[0]}\nwidth = {first[1]}\n'
+            f'{per}[roughness]\nlandcover = "landcover.gpkg"\nclass_field = "cover"\nchannel_class = "channel"\n'
+            f'{cls}{ev}[boundary]\ndownstream = {boundary}\n{extra}')
+    path = Path(folder) / "geoflow.toml"
+    path.write_text(text)
+    return path
+
+
+def sine_generated(length, wavelength, omega, step=1.0):
+    """Sine-generated meander, direction theta(s) = omega sin(2 pi s / wavelength) (Langbein & Leopold
+    1966, USGS Prof. Paper 422-H), integrated every ``step`` m of arc: (s, x, y, theta)."""
+    s = np.arange(0.0, length + step, step)
+    theta = omega * np.sin(2 * np.pi * s / wavelength)
+    x = np.concatenate([[0.0], np.cumsum(np.cos(theta[:-1]) * step)])
+    y = np.concatenate([[0.0], np.cumsum(np.sin(theta[:-1]) * step)])
+    return s, x, y, theta

@@ -109,6 +109,26 @@ def dogleg_sides(centre: np.ndarray, normal: np.ndarray, bend: np.ndarray, lengt
     return sides
 
 
+def across_valley_lengths(sides: Sides, valley, half_width: float) -> np.ndarray:
+    """(N, 2) side lengths that end each side ``half_width`` m from the valley axis (measured along
+    the axis normal), never shorter than the channel leg and never longer than twice ``half_width``.
+
+    The offset of a side's last leg from the axis changes at the rate cos(angle to the axis normal)
+    along it, so the rest of the side is (half_width - offset at its start) / cos.
+    """
+    bent = np.isfinite(sides.bend)
+    start = np.where(bent[..., None], sides.centre[:, None, :] + sides.bend[..., None] * sides.first,
+                     sides.centre[:, None, :])
+    u, vn = valley.frame(start.reshape(-1, 2))
+    foot = shapely.get_coordinates(shapely.line_interpolate_point(valley.axis, u))
+    offset = np.einsum("pk,pk->p", start.reshape(-1, 2) - foot, vn).reshape(bent.shape)
+    rate = np.einsum("nsk,nsk->ns", sides.second, vn.reshape(sides.second.shape))   # d(offset)/d(length)
+    outward = np.where(rate >= 0, 1.0, -1.0)
+    rest = (half_width - outward * offset) / np.maximum(np.abs(rate), 0.5)
+    lead = np.where(bent, sides.bend, 0.0)
+    return np.clip(lead + np.maximum(rest, 0.0), np.where(bent, sides.bend, 0.0), 2.0 * half_width)
+
+
 def _meander_loops_straight(sides: Sides, own_line) -> Sides:
     """Sides whose floodplain leg crosses the own centreline keep the channel normal instead."""
     bent = sides.is_bent()

@@ -80,8 +80,12 @@ def stations_about_centre(left: float, right: float, step: float) -> np.ndarray:
     return np.concatenate((np.linspace(0.0, left, n_l + 1), left + np.linspace(0.0, right, n_r + 1)[1:]))
 
 
-def chainages(rid: str, length: float, spacing: float) -> np.ndarray:
-    """0, spacing, 2·spacing, ... plus the downstream end L (merging a last gap < spacing/10)."""
+def chainages(rid: str, length: float, spacing: float, even_end: bool = False) -> np.ndarray:
+    """0, spacing, 2·spacing, ... plus the downstream end L (merging a last gap < spacing/10).
+
+    ``even_end``: a last gap under half a spacing is shared evenly with the one before it, so no
+    two sections end up much closer than the spacing (dog-leg layouts).
+    """
     if length < spacing:
         raise GeometryError(
             f"reach {rid}: centreline is {length:.1f} m long, shorter than [sections] spacing = {spacing:g} m, "
@@ -90,7 +94,10 @@ def chainages(rid: str, length: float, spacing: float) -> np.ndarray:
     chain = np.arange(0.0, length, spacing)
     if length - chain[-1] < 0.1 * spacing and chain.size > 1:
         chain = chain[:-1]
-    return np.append(chain, length)
+    chain = np.append(chain, length)
+    if even_end and chain.size > 2 and chain[-1] - chain[-2] < 0.5 * spacing:
+        chain[-2] = 0.5 * (chain[-3] + chain[-1])
+    return chain
 
 
 def frame(rid: str, line: LineString, chain: np.ndarray, smoothing: float, h_min: float):

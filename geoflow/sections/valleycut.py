@@ -10,7 +10,9 @@ Pure geometry on shapely/numpy; the DEM is reached only through ``dem.sample(x, 
    they reach beyond the meander belt (half the width exceeds the belt half-width plus the
    channel's half top width), otherwise they stay straight across the channel as before;
 3. channel edges along the channel normal (:mod:`geoflow.sections.channel`), the bends just beyond
-   them, and the side paths (:mod:`geoflow.sections.doglegs`);
+   them, and the side paths (:mod:`geoflow.sections.doglegs`). Dog-leg sections span the same
+   strip of valley, ``width`` / 2 either side of the valley axis (so a meander swinging to one
+   side does not leave the far side of the valley uncovered);
 4. sections that run along a narrow raised strip are moved to its faces (:mod:`geoflow.sections.strips`);
 5. side lengths: adaptive width, then the territory, then crossings within the reach repaired
    by shortening;
@@ -26,7 +28,7 @@ from ..records import ReachGeometry
 from . import strips as strip_rules
 from .channel import bend_distances, channel_edges
 from .common import build_sections, sample_many
-from .doglegs import Sides, crossing_pairs, dogleg_sides, shorten_crossings
+from .doglegs import Sides, across_valley_lengths, crossing_pairs, dogleg_sides, shorten_crossings
 from .lengths import flow_path_lengths
 from .sidelimits import adaptive_halves
 from .stations import chainages, frame, grid_stations, stations_about_centre
@@ -54,13 +56,16 @@ def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, r
         warnings.append(f"reach {rid}: sections end at chainage {end:.1f} m of {length:.1f} m, at the edge of "
                         "another reach's channel (its junction boundary still reads that reach's level where this "
                         "one meets its channel)")
-    chain = chainages(rid, end, float(spacing))
+    chain = chainages(rid, end, float(spacing), even_end=True)
     ctx.bent = layout == "valley" or _beyond_belt(ctx, chain)
     if strips is not None or ctx.bent:
-        chain = _off_strips(ctx, chain, strips, flags_extra, warnings)
-    sides, edges_found = ctx.sides(chain)
-    flags: list[list[str]] = [list(flags_extra.get(float(c), [])) for c in chain]
-    sides = _limit(ctx, sides, chain, rise, rise_margin, (territory, who, drafting), repair, flags, warnings)
+        chain = _off_strips(ctx, chain, _with_other_channels(strips, territory, who), flags_extra, warnings)
+    area = (territory, who, drafting)
+    if territory is not None:
+        scratch: list[str] = []
+        sides, _ = _laid_out(ctx, chain, area, rise, rise_margin, repair, flags_extra, scratch)
+        chain = _edges_added(ctx, chain, sides, area, flags_extra)
+    sides, flags = _laid_out(ctx, chain, area, rise, rise_margin, repair, flags_extra, warnings)
     sides, chain, flags = _drop_squeezed(rid, sides, chain, flags, warnings, step)
     lines = sides.lines()
     stations = [_stations(sides, k, step, dem, follow_grid) for k in range(chain.size)]
@@ -93,7 +98,58 @@ class _Context:
         typical = float(np.median(edges))
         edges = np.minimum(edges, 3.0 * max(typical, self.step))     # a confluence does not widen the channel leg
         bends = bend_distances(edges, self.step)
-        return dogleg_sides(centre, normal, bends, half, self.valley, own_line=self.line), found
+        sides = dogleg_sides(centre, normal, bends, half, self.valley, own_line=self.line)
+        return sides.with_length(across_valley_lengths(sides, self.valley, 0.5 * self.width)), found
+
+
+def _laid_out(ctx, chain, area, rise, rise_margin, repair, flags_extra, warnings):
+    """Limited sides of the sections at ``chain`` and their flags."""
+    flags: list[list[str]] = [list(flags_extra.get(float(c), [])) for c in chain]
+    sides, _ = ctx.sides(chain)
+    return _limit(ctx, sides, chain, rise, rise_margin, area, repair, flags, warnings), flags
+
+
+def _edges_added(ctx, chain, sides: Sides, area, flags_extra) -> np.ndarray:
+    """Sections added where another reach's area begins between two sections (the receiving river's
+    sections bend around a tributary's mouth area instead of leaving a gap beside it).
+
+    Where one of two neighbouring sections is cut short by another reach's area on a side and the
+    other is not (their lengths differ by over a quarter of the half-width), the chainage between
+    them where that side's kept length falls is found by bisection and a section added a sample
+    step before the fall, on the long side.
+    """
+    territory, who, drafting = area
+    add = []
+    half = 0.5 * ctx.width
+    for k in range(chain.size - 1):
+        for side in (0, 1):
+            a, b = sides.length[k, side], sides.length[k + 1, side]
+            if abs(a - b) < 0.25 * half:
+                continue
+            long_at_lo = a > b
+            lo, hi = float(chain[k]), float(chain[k + 1])
+            target = 0.5 * (a + b)
+            for _ in range(8):
+                mid = 0.5 * (lo + hi)
+                one, _ = ctx.sides(np.array([mid]))
+                kept = own_extent(territory, who, one, ctx.step, 0.5 * ctx.step, drafting)[0, side]
+                if (kept >= target) == long_at_lo:
+                    lo = mid
+                else:
+                    hi = mid
+            c = lo - ctx.step if long_at_lo else hi + ctx.step        # a step clear of the other area
+            if min(c - chain[k], chain[k + 1] - c) > 2.0 * ctx.step:
+                add.append(c)
+    return np.unique(np.concatenate((chain, add))) if add else chain
+
+
+def _with_other_channels(strips, territory, who):
+    """Narrow strips plus the other reaches' channels and banks: no section runs along another channel."""
+    if territory is None:
+        return strips
+    others = [b for i, b in enumerate(territory.banks) if i != who and not b.is_empty]
+    base = [] if strips is None else list(strips)
+    return np.asarray(base + others, dtype=object) if base or others else None
 
 
 def _whole_channel_leg(ctx: _Context, territory, who, drafting, end: float) -> float:
