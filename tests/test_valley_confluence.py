@@ -23,7 +23,7 @@ from valleys import grid, trapezoid_depth, valley_config, write_cover, write_dem
 from geoflow.batch import run
 
 CELL = 2.0
-YC, XT = 700.0, 900.0              # main channel line; tributary line
+YC = 700.0                         # main channel line (the tributary joins at x = xt)
 S_MAIN = 0.0012
 MAIN = dict(bottom_half=5.0, side=1.5, depth=2.2, floor=220.0)
 TRIB = dict(bottom_half=2.0, side=1.5, depth=1.2, floor=55.0)
@@ -38,7 +38,7 @@ def capacity(spec, slope, n=N_CH):
     return area * (area / perim) ** (2 / 3) * np.sqrt(slope) / n
 
 
-def confluence(folder):
+def confluence(folder, XT):
     X, Y, transform = grid(0.0, 0.0, 1800.0, 1400.0, CELL)
     fp_main = 40.0 - S_MAIN * X                                    # main floodplain
     bed_main = 40.0 - S_MAIN * X - MAIN["depth"]
@@ -65,10 +65,12 @@ def confluence(folder):
     return main, trib, chan_main
 
 
-@pytest.fixture(scope="module")
-def confluence_run(tmp_path_factory):
+@pytest.fixture(scope="module", params=[900.0, 880.0])
+def confluence_run(tmp_path_factory, request):
+    """Junction between two main sections (x = 900) and on one (x = 880: chainage 840 = 21 x 40)."""
+    XT = request.param
     folder = tmp_path_factory.mktemp("confluence")
-    main, trib, chan_main = confluence(folder)
+    main, trib, chan_main = confluence(folder, XT)
     q_main, q_trib = 0.45 * capacity(MAIN, S_MAIN), 0.45 * capacity(TRIB, S_TRIB)
     junction = main.project(shapely.Point(XT, YC))
 
@@ -82,11 +84,11 @@ def confluence_run(tmp_path_factory):
                         {"channel": N_CH, "meadow": 0.05}, extra)
     res = run(cfg)
     assert not res.failed, res.reaches
-    return res, main, trib, chan_main, junction
+    return res, main, trib, chan_main, junction, XT
 
 
 def test_reaches_meet_without_crossing(confluence_run):
-    res, main, trib, chan_main, _ = confluence_run
+    res, main, trib, chan_main, _, XT = confluence_run
     secs = gpd.read_file(res.paths["sections"], layer="sections")
     a = np.asarray(secs[secs.reach_id == "main"].geometry.values, dtype=object)
     b = np.asarray(secs[secs.reach_id == "trib"].geometry.values, dtype=object)
@@ -99,7 +101,7 @@ def test_reaches_meet_without_crossing(confluence_run):
 
 
 def test_in_bank_flows_stay_in_their_sections_and_levels_meet(confluence_run):
-    res, main, trib, chan_main, junction = confluence_run
+    res, main, trib, chan_main, junction, _ = confluence_run
     p = res.profile
     inb = p[p.event == "inbank"]
     assert not inb["flags"].str.contains("not_contained|spills").any(), inb[inb["flags"] != ""][["reach_id", "flags"]]
@@ -113,7 +115,7 @@ def test_in_bank_flows_stay_in_their_sections_and_levels_meet(confluence_run):
 
 
 def test_maps_keep_to_their_reach(confluence_run):
-    res, main, trib, chan_main, junction = confluence_run
+    res, main, trib, chan_main, junction, _ = confluence_run
     with rasterio.open(res.output_dir / "rasters" / "trib" / "flood_wse.tif") as ds:
         wse = ds.read(1, masked=True).filled(np.nan)
         t = ds.transform

@@ -38,16 +38,19 @@ class Sides:
     bend: np.ndarray          # (N, 2) distance from the centre to the bend (inf: no bend)
     second: np.ndarray        # (N, 2, 2) unit direction of the floodplain leg
     length: np.ndarray        # (N, 2) side length along the path, m
+    channel_leg: np.ndarray | None = None   # (N, 2) channel edge + margin, m (kept when a side is straight)
 
     @classmethod
     def straight(cls, centre: np.ndarray, normal: np.ndarray, length: np.ndarray) -> "Sides":
         """Sides along the channel normal (the classical straight section)."""
         first = _SIGN[None, :, None] * normal[:, None, :]
-        return cls(centre, first, np.full(length.shape, np.inf), first.copy(), np.asarray(length, float))
+        length = np.asarray(length, float)
+        return cls(centre, first, np.full(length.shape, np.inf), first.copy(), length, np.zeros(length.shape))
 
     def subset(self, keep: np.ndarray) -> "Sides":
         """The sections selected by the boolean or index array ``keep``."""
-        return Sides(self.centre[keep], self.first[keep], self.bend[keep], self.second[keep], self.length[keep])
+        leg = None if self.channel_leg is None else self.channel_leg[keep]
+        return Sides(self.centre[keep], self.first[keep], self.bend[keep], self.second[keep], self.length[keep], leg)
 
     def with_length(self, length: np.ndarray) -> "Sides":
         return replace(self, length=np.asarray(length, dtype=float))
@@ -91,7 +94,8 @@ class Sides:
 def dogleg_sides(centre: np.ndarray, normal: np.ndarray, bend: np.ndarray, length: np.ndarray, valley,
                  own_line=None) -> Sides:
     """Sides bent at ``bend`` (N, 2) m from the centre onto the valley normal (see module notes)."""
-    bend = np.minimum(np.asarray(bend, dtype=float), np.asarray(length, dtype=float))
+    leg = np.asarray(bend, dtype=float)
+    bend = np.minimum(leg, np.asarray(length, dtype=float))
     first = _SIGN[None, :, None] * normal[:, None, :]
     knee = centre[:, None, :] + bend[..., None] * first                       # (N, 2, 2)
     _, vn = valley.frame(knee.reshape(-1, 2))
@@ -103,7 +107,7 @@ def dogleg_sides(centre: np.ndarray, normal: np.ndarray, bend: np.ndarray, lengt
     straight = np.degrees(np.arccos(cos_turn)) < STRAIGHT_DEG
     second = np.where(straight[..., None], first, second)
     bend = np.where(straight, np.inf, bend)
-    sides = Sides(centre, first, bend, second, np.asarray(length, dtype=float))
+    sides = Sides(centre, first, bend, second, np.asarray(length, dtype=float), leg)
     if own_line is not None:
         sides = _meander_loops_straight(sides, own_line)
     return sides

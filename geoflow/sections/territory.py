@@ -84,6 +84,16 @@ class Territory:
     def owns(self, who: int, xy: np.ndarray, drafting: bool = False) -> np.ndarray:
         return self.owner(xy, who if drafting else None) == who
 
+    def other_channels(self, who: int):
+        """The channels and banks of the other reaches, outside the channels that outrank them: one geometry."""
+        parts = []
+        for j, bank in enumerate(self.banks):
+            if j == who or bank.is_empty:
+                continue
+            above = [z for i, z in enumerate(self.zones) if i != j and self.rank[i] > self.rank[j] and not z.is_empty]
+            parts.append(shapely.difference(bank, shapely.union_all(above)) if above else bank)
+        return shapely.union_all(parts) if parts else Polygon()
+
     def with_footprint(self, who: int, lines) -> "Territory":
         """This territory with reach ``who``'s footprint set to the area between its section ``lines``."""
         feet = self.footprints.copy()

@@ -59,8 +59,10 @@ def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, r
     chain = chainages(rid, end, float(spacing), even_end=True)
     ctx.bent = layout == "valley" or _beyond_belt(ctx, chain)
     if strips is not None or ctx.bent:
-        chain = _off_strips(ctx, chain, _with_other_channels(strips, territory, who), flags_extra, warnings)
+        chain = _off_strips(ctx, chain, strips, flags_extra, warnings)
     area = (territory, who, drafting)
+    if territory is not None and ctx.bent:
+        chain = _off_other_channels(ctx, chain, territory, who, flags_extra, warnings)
     if territory is not None:
         scratch: list[str] = []
         sides, _ = _laid_out(ctx, chain, area, rise, rise_margin, repair, flags_extra, scratch)
@@ -100,6 +102,40 @@ class _Context:
         bends = bend_distances(edges, self.step)
         sides = dogleg_sides(centre, normal, bends, half, self.valley, own_line=self.line)
         return sides.with_length(across_valley_lengths(sides, self.valley, 0.5 * self.width)), found
+
+
+def _off_other_channels(ctx: _Context, chain, territory, who, flags_extra, warnings) -> np.ndarray:
+    """Sections whose channel leg would reach into another reach's channel moved along the centreline.
+
+    At a confluence a section centred where the tributary's channel meets this one would end in
+    that channel's trench. It is moved, a sample step at a time (at most half a spacing, keeping a
+    fifth of a spacing from its neighbours), to the nearest position whose channel leg is clear.
+    """
+    foreign = territory.other_channels(who)
+    if foreign.is_empty:
+        return chain
+
+    def touches(c) -> np.ndarray:
+        sides, _ = ctx.sides(np.atleast_1d(np.asarray(c, dtype=float)))
+        reach = np.minimum(sides.channel_leg, sides.length)
+        ends = sides.centre[:, None, :] + reach[..., None] * sides.first
+        return shapely.intersects(shapely.linestrings(ends), foreign)
+
+    new = chain.copy()
+    for k in np.flatnonzero(touches(chain)):
+        lo = new[k - 1] + 0.2 * ctx.spacing if k > 0 else chain[k]
+        hi = new[k + 1] - 0.2 * ctx.spacing if k + 1 < chain.size else chain[k]
+        j = np.arange(1, int(0.5 * ctx.spacing / ctx.step) + 1) * ctx.step
+        cand = np.concatenate([(chain[k] - d, chain[k] + d) for d in j])
+        cand = cand[(cand >= lo) & (cand <= hi)]
+        clear = ~touches(cand) if cand.size else np.zeros(0, dtype=bool)
+        if not clear.any():
+            continue
+        new[k] = float(cand[int(np.argmax(clear))])
+        flags_extra.setdefault(float(new[k]), []).append("moved_off_confluence")
+        warnings.append(f"reach {ctx.rid}: section at chainage {chain[k]:.1f} m would end in another reach's "
+                        f"channel; moved to chainage {new[k]:.1f} m")
+    return new
 
 
 def _laid_out(ctx, chain, area, rise, rise_margin, repair, flags_extra, warnings):
@@ -143,15 +179,6 @@ def _edges_added(ctx, chain, sides: Sides, area, flags_extra) -> np.ndarray:
     return np.unique(np.concatenate((chain, add))) if add else chain
 
 
-def _with_other_channels(strips, territory, who):
-    """Narrow strips plus the other reaches' channels and banks: no section runs along another channel."""
-    if territory is None:
-        return strips
-    others = [b for i, b in enumerate(territory.banks) if i != who and not b.is_empty]
-    base = [] if strips is None else list(strips)
-    return np.asarray(base + others, dtype=object) if base or others else None
-
-
 def _whole_channel_leg(ctx: _Context, territory, who, drafting, end: float) -> float:
     """The last chainage up to ``end`` whose section keeps its whole channel leg in the reach's territory.
 
@@ -162,8 +189,7 @@ def _whole_channel_leg(ctx: _Context, territory, who, drafting, end: float) -> f
     for back in np.arange(0.0, ctx.spacing + ctx.step, ctx.step):
         c = max(end - back, 0.0)
         sides, _ = ctx.sides(np.array([c]))
-        bend = np.where(np.isfinite(sides.bend), sides.bend, 2.0 * ctx.step)
-        dist = bend[..., None] * np.linspace(0.0, 1.0, 9)[None, None, :]
+        dist = np.minimum(sides.channel_leg, sides.length)[..., None] * np.linspace(0.0, 1.0, 9)[None, None, :]
         if territory.owns(who, sides.points(dist).reshape(-1, 2), drafting).all():
             return c
     return end
@@ -193,14 +219,14 @@ def _moved_off(ctx: _Context, chain, share_at, flags_extra, warnings) -> np.ndar
     for k in bad[::-1]:
         faces, found = strip_rules.face_positions(chain, int(k), ctx.spacing, ctx.step, share_at)
         if not found:
-            flags_extra.setdefault(float(chain[k]), []).append("along_embankment")
+            flags_extra.setdefault(float(chain[k]), []).append("along_strip")
             warnings.append(f"reach {ctx.rid}: section at chainage {chain[k]:.1f} m runs along a road or embankment "
                             f"({share[k]:.0%} of a floodplain leg) and no position within half a spacing avoids it; "
                             "draw that section yourself")
             continue
         new[k:k + 1] = faces
         for f in faces:
-            flags_extra.setdefault(float(f), []).append("at_embankment_face")
+            flags_extra.setdefault(float(f), []).append("moved_off_strip")
         warnings.append(f"reach {ctx.rid}: section at chainage {chain[k]:.1f} m ran along a road or embankment "
                         f"({share[k]:.0%} of a floodplain leg); moved to chainage(s) "
                         f"{', '.join(f'{f:.1f}' for f in faces)} m at its face(s)")
