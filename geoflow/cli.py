@@ -61,11 +61,13 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("geoflow: interrupted; run again with --resume to continue", file=sys.stderr)
         return 130
+    from .batch.summary import flag_lines, verdict
     failed = 0
     for result in results:
         for rid, r in result.reaches.items():
-            print(f"{result.config.run.name}: reach {rid}: " + ("ok" if r.get("status") == "complete"
-                                                                 else f"FAILED: {r.get('error')}"))
+            print(f"{result.config.run.name}: reach {rid}: {verdict(r)}")
+            for line in flag_lines(r):
+                print(f"    {line}")
         failed += len(result.failed)
         crossing = len(result.crossings)
         if crossing:

@@ -54,7 +54,9 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     man.save()
     result.paths["manifest"] = man.path
     result.profile = profile
-    result.reaches = {rid: man.data["reaches"].get(rid, {"status": "failed", "error": "not computed"})
+    result.reaches = {rid: dict(man.data["reaches"].get(rid, {"status": "failed", "error": "not computed"}),
+                                events={e.name: units[unit_key(rid, e.name)] for e in cfg.events
+                                        if unit_key(rid, e.name) in units})
                       for rid in order}
 
 

@@ -29,6 +29,7 @@ from . import reach
 from .inputs import Inputs, open_inputs
 from .layout import relative_name
 from .manifest import part_paths
+from .summary import event_summary
 
 #: geometry built while validating, reused by in-process (and forked) tasks: {(identity, reach id): geometry}
 GEOMETRY_CACHE: dict[tuple[str, str], ReachGeometry] = {}
@@ -154,7 +155,7 @@ def _compute_event(cfg: Config, inputs, geom, prof, ev) -> dict:
     flagged = int((rows["flags"].str.len() > 0).sum())
     return {"status": "complete", "error": None, "files": [relative_name(cfg.run.output_dir, f) for f in files],
             "timings_s": {"mapping_and_writing": t2 - t1},
-            "max_depth_m": float(np.nanmax(rows["depth_m"])), "flagged_sections": flagged}
+            "max_depth_m": float(np.nanmax(rows["depth_m"])), "flagged_sections": flagged, **event_summary(rows)}
 
 
 def _write_maps(cfg: Config, inputs, geom, event: str, prof) -> list[Path]:

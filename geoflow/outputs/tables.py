@@ -17,6 +17,7 @@ PROFILE_COLUMNS = (
     "velocity_ms", "froude", "alpha",
     "area_m2", "top_width_m", "friction_slope",
     "q_channel_m3s", "q_floodplain_left_m3s", "q_floodplain_right_m3s",
+    "spill_left_m", "spill_right_m",
     "flags",
 )
 #: what each profile.csv column holds (units in the name: _m metres, _m2, _m3s m3/s, _ms m/s)
@@ -35,8 +36,16 @@ PROFILE_MEANING = {
     "friction_slope": "friction slope (Q/K)^2, m/m",
     "q_channel_m3s": "discharge in the channel, m3/s", "q_floodplain_left_m3s": "discharge on the left floodplain, m3/s",
     "q_floodplain_right_m3s": "discharge on the right floodplain, m3/s",
+    "spill_left_m": "height of the water surface above the left end of the section where it spills there, m "
+                    "(empty where it does not)",
+    "spill_right_m": "height of the water surface above the right end of the section where it spills there, m",
     "flags": "';'-separated flag words (see the README flag table)",
 }
+#: Words naming the end a spill goes over, appended where the water stands above that end.
+SPILL_WORDS = ("spills_left", "spills_right")
+#: Words saying that an end of a section meets another reach's area (a spill there is expected).
+OTHER_REACH_WORDS = ("left_end_at_other_reach", "right_end_at_other_reach")
+
 #: sections.gpkg layer "sections": required attributes.
 SECTION_COLUMNS = ("reach_id", "section_id", "chainage_m", "channel_edge_left_m", "channel_edge_right_m", "flags")
 #: inundation.gpkg layer "extent": required attributes.
@@ -52,8 +61,9 @@ def profile_rows(geom, event: str, prof) -> pd.DataFrame:
     ``geom``: :class:`geoflow.records.ReachGeometry`; ``prof``: :class:`geoflow.hydraulics.Profile`.
     """
     n = len(geom.sections)
-    flags = [";".join(k for k in dict.fromkeys(tuple(s.flags) + tuple(f)) if k not in INFO_ONLY_FLAGS)
-             for s, f in zip(geom.sections, prof.flags)]
+    spill = spill_heights(geom, prof.wse)
+    flags = [";".join(k for k in dict.fromkeys(tuple(s.flags) + tuple(f) + _spill_words(h)) if k not in INFO_ONLY_FLAGS)
+             for s, f, h in zip(geom.sections, prof.flags, spill)]
     bed = np.array([s.bed_elevation for s in geom.sections])
     q = np.asarray(prof.part_discharge)
     df = pd.DataFrame({
@@ -78,9 +88,23 @@ def profile_rows(geom, event: str, prof) -> pd.DataFrame:
         "q_channel_m3s": q[:, 1],
         "q_floodplain_left_m3s": q[:, 0],
         "q_floodplain_right_m3s": q[:, 2],
+        "spill_left_m": spill[:, 0],
+        "spill_right_m": spill[:, 1],
         "flags": flags,
     })
     return df
+
+
+def spill_heights(geom, wse) -> np.ndarray:
+    """(N, 2) height (m) of the water surface above the left / right end of each section; NaN where
+    the end is above the water (no spill there)."""
+    ends = np.array([[s.elevation[0], s.elevation[-1]] for s in geom.sections], dtype=float)
+    h = np.asarray(wse, dtype=float)[:, None] - ends
+    return np.where(h > 0, h, np.nan)
+
+
+def _spill_words(heights) -> tuple[str, ...]:
+    return tuple(w for w, h in zip(SPILL_WORDS, heights) if np.isfinite(h))
 
 
 def section_rows(geom, composite_n) -> list[dict]:
@@ -92,10 +116,11 @@ def section_rows(geom, composite_n) -> list[dict]:
     for s in geom.sections:
         lb, rb = s.channel_edges
         n_left, n_ch, n_right = composite_n(s)
+        storage = 0.0 if s.storage is None else float(np.sum(np.diff(s.station)[np.asarray(s.storage)]))
         rows.append({"reach_id": geom.reach_id, "section_id": s.section_id, "chainage_m": s.chainage,
                      "channel_edge_left_m": lb, "channel_edge_right_m": rb, "bed_m": s.bed_elevation,
                      "n_floodplain_left": n_left, "n_channel": n_ch, "n_floodplain_right": n_right,
-                     "flags": ";".join(s.flags), "geometry": s.line})
+                     "storage_m": storage, "flags": ";".join(s.flags), "geometry": s.line})
     return rows
 
 

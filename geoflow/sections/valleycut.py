@@ -279,7 +279,7 @@ def _limit(ctx, sides: Sides, chain, rise, rise_margin, area, repair, flags, war
         sides = sides.with_length(own_extent(territory, who, sides, step, 0.5 * step, drafting))
         cut = sides.length < before - 1e-9
         for k, side in zip(*np.nonzero(cut)):
-            flags[k].append(("left", "right")[side] + "_end_at_other_reach")
+            flags[k].append("left_end_at_other_reach" if side == 0 else "right_end_at_other_reach")
         for k in np.flatnonzero(cut.any(axis=1)):
             warnings.append(f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) stops where another reach's "
                             f"area begins; sides {sides.length[k, 0]:.1f} m / {sides.length[k, 1]:.1f} m")
