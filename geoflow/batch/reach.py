@@ -111,6 +111,19 @@ def layout_inputs(cfg: Config, inputs: Inputs) -> LayoutInputs:
     return out
 
 
+def map_clip(cfg: Config, inputs: Inputs, geom: ReachGeometry):
+    """The polygon a reach's flood maps are cut to where it meets other reaches (None: no cut).
+
+    Rule (README, reaches that meet): a cell takes its level from the reach whose sections cover it;
+    where two reaches' areas touch, from the one that owns it by the territory rule. User-drawn
+    sections are not cut.
+    """
+    if len(inputs.reaches) < 2 or geom.reach_id in inputs.user_lines:
+        return None
+    territory = layout_inputs(cfg, inputs).territory
+    return territory.claim(territory.index(geom.reach_id), [s.line for s in geom.sections])
+
+
 def discharge_along(event: Event, reach_id: str, chainage: np.ndarray) -> np.ndarray:
     """Discharge (m3/s) at each section: the upstream value, replaced downstream of each flow change."""
     q = np.full(chainage.shape, float(event.upstream_discharge(reach_id)))

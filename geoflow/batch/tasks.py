@@ -171,7 +171,7 @@ def _write_maps(cfg: Config, inputs, geom, event: str, prof) -> list[Path]:
     paths = {k: rdir / f"{safe_name(event)}_{k}.tif" for k in kinds}
     velocity = _velocity_inputs(cfg, inputs, prof) if "velocity" in kinds else None
     m = write_reach_maps(inputs.dem, geom, np.asarray(prof.wse), paths, cell_size=cfg.mapping.cell_size,
-                         velocity=velocity)
+                         velocity=velocity, clip=reach.map_clip(cfg, inputs, geom))
     ext = gpd.GeoDataFrame({"reach_id": [geom.reach_id] * len(m.extent), "event": [event] * len(m.extent),
                             "area_m2": [p.area for p in m.extent]}, geometry=list(m.extent),
                            crs=inputs.dem.crs.to_wkt())

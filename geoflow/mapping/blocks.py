@@ -28,16 +28,19 @@ class Surface:
 
     ``values`` (k, N): row 0 is the WSE (m) and decides which quads exist (a NaN at either
     end leaves the quad dry); further rows (e.g. friction slope) are interpolated with the
-    same weights. Quad i = section line i + reversed line i+1, repaired with make_valid.
+    same weights. Quad i = section line i + reversed line i+1, repaired with make_valid, and cut
+    to ``clip`` (the reach's own area, see :meth:`geoflow.sections.territory.Territory.claim`) if given.
     """
 
-    def __init__(self, sections, values: np.ndarray):
+    def __init__(self, sections, values: np.ndarray, clip=None):
         self.values = np.atleast_2d(np.asarray(values, dtype=np.float64))
         wse = self.values[0]
         quads, index = [], []
         for i in np.flatnonzero(np.isfinite(wse[:-1]) & np.isfinite(wse[1:])):
             ring = list(sections[i].line.coords) + list(sections[i + 1].line.coords)[::-1]
             quad = polygonal(shapely.make_valid(Polygon([c[:2] for c in ring])))
+            if quad is not None and clip is not None:
+                quad = polygonal(shapely.intersection(quad, clip))
             if quad is not None:
                 quads.append(quad)
                 index.append(i)

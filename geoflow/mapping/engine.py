@@ -168,7 +168,7 @@ class _Context:
 
 
 def map_reach(dem, geom, wse_at_section, cell_size: float | None = None, pad: int = PAD_CELLS,
-              block: int | None = None, velocity: VelocityInputs | None = None) -> ReachMap:
+              block: int | None = None, velocity: VelocityInputs | None = None, clip=None) -> ReachMap:
     """Map the water surface of one reach onto the DEM grid, in memory (see module docstring).
 
     dem: geoflow.terrain.Dem; geom: ReachGeometry; wse_at_section: (N,) m, one per section;
@@ -217,7 +217,7 @@ class _Sink:
 
 
 def write_reach_maps(dem, geom, wse_at_section, paths: dict, cell_size: float | None = None, block: int = 2048,
-                     velocity: VelocityInputs | None = None, pad: int = PAD_CELLS) -> MapSummary:
+                     velocity: VelocityInputs | None = None, pad: int = PAD_CELLS, clip=None) -> MapSummary:
     """Map one reach block by block and write its rasters as Cloud-Optimised GeoTIFFs.
 
     paths: {"wse" | "depth" | "velocity": output path}, any subset; each raster is float32
@@ -226,10 +226,10 @@ def write_reach_maps(dem, geom, wse_at_section, paths: dict, cell_size: float | 
     atomically (:func:`geoflow.outputs.block_raster_writer`). Only one block of ``block``
     x ``block`` cells is in memory at a time (plus GDAL's cache, set to
     ``GDAL_CACHE_MB``). Same cells as :func:`map_reach` for any block size.
-    Returns a :class:`MapSummary`.
+    ``clip``: as for :func:`map_reach`. Returns a :class:`MapSummary`.
     """
     paths = _check_paths(geom, paths, velocity)
-    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity)
+    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity, clip)
     rows, cols = grid.shape
     tile = 512 if min(rows, cols) >= 4096 else 256
     with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB * 1024 * 1024), contextlib.ExitStack() as stack:
@@ -257,7 +257,7 @@ def _check_paths(geom, paths, velocity) -> dict:
     return out
 
 
-def _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity) -> tuple[_Context, Grid]:
+def _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity, clip=None) -> tuple[_Context, Grid]:
     """Validated inputs -> engine context and output grid."""
     wse = _check_inputs(geom, wse_at_section)
     values = wse[None, :]
@@ -277,7 +277,7 @@ def _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity) -> tupl
         raise ConfigError(f"reach {geom.reach_id}: block size {block} is too small; use at least 2 cells "
                           "(256 to 4096 are typical)")
     grid = Grid(dem_window=win, transform=transform, shape=shape_rc, factor=factor, block=size)
-    ctx = _Context(dem=dem, surface=Surface(geom.sections, values), centreline=shapely.force_2d(geom.centreline),
+    ctx = _Context(dem=dem, surface=Surface(geom.sections, values, clip), centreline=shapely.force_2d(geom.centreline),
                    cell=float(max(abs(transform.a), abs(transform.e))), velocity=velocity)
     return ctx, grid
 

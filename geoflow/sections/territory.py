@@ -94,6 +94,17 @@ class Territory:
             parts.append(shapely.difference(bank, shapely.union_all(above)) if above else bank)
         return shapely.union_all(parts) if parts else Polygon()
 
+    def claim(self, who: int, lines):
+        """The part of the area between this reach's section ``lines`` that the rule gives it: that
+        area less the other reaches' channels and banks (outside the channels that outrank them)
+        and less the tributaries' footprints. Flood maps are clipped to it, so no two reaches map a
+        cell and none maps another's channel."""
+        area = footprint(lines)
+        others = [self.other_channels(who)] + [f for j, f in enumerate(self.footprints) if j != who and not f.is_empty]
+        own = self.zones[who]
+        taken = shapely.difference(shapely.union_all(others), own) if not own.is_empty else shapely.union_all(others)
+        return shapely.difference(area, taken)
+
     def with_footprint(self, who: int, lines) -> "Territory":
         """This territory with reach ``who``'s footprint set to the area between its section ``lines``."""
         feet = self.footprints.copy()

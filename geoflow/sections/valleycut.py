@@ -277,10 +277,10 @@ def _limit(ctx, sides: Sides, chain, rise, rise_margin, area, repair, flags, war
     if territory is not None:
         before = sides.length
         sides = sides.with_length(own_extent(territory, who, sides, step, 0.5 * step, drafting))
-        cut = sides.length < before - 1e-9
+        cut = (sides.length < before - 1e-9) | _low_end_at_other_reach(ctx, sides, territory, who)
         for k, side in zip(*np.nonzero(cut)):
             flags[k].append("left_end_at_other_reach" if side == 0 else "right_end_at_other_reach")
-        for k in np.flatnonzero(cut.any(axis=1)):
+        for k in np.flatnonzero((sides.length < before - 1e-9).any(axis=1)):
             warnings.append(f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) stops where another reach's "
                             f"area begins; sides {sides.length[k, 0]:.1f} m / {sides.length[k, 1]:.1f} m")
     if repair:
@@ -308,6 +308,22 @@ def _limit(ctx, sides: Sides, chain, rise, rise_margin, area, repair, flags, war
                                 f"only {total[k]:.1f} m of its {ctx.width:g} m width (sharp bend); smooth the "
                                 "centreline, or reduce [sections] width or spacing")
     return sides
+
+
+def _low_end_at_other_reach(ctx, sides: Sides, territory, who) -> np.ndarray:
+    """(N, 2) sides whose full-length end borders another reach's area (by the final rule) on ground no
+    more than 1 m above the section's higher channel edge: water spilling there is that reach's."""
+    beyond = sides.points((sides.length + 2.0 * ctx.step)[..., None])[:, :, 0]
+    foreign = ~territory.owns(who, beyond.reshape(-1, 2)).reshape(beyond.shape[:2])
+    if not foreign.any():
+        return foreign
+    ends = sides.points(sides.length[..., None])[:, :, 0]
+    edge = sides.points(np.minimum(np.where(sides.channel_leg > 0, sides.channel_leg, ctx.step), sides.length)[..., None])
+    z_end, z_edge = (sample_many(ctx.dem, [p[..., 0].ravel()], [p[..., 1].ravel()])[0].reshape(foreign.shape)
+                     for p in (ends, edge[:, :, 0]))
+    with np.errstate(invalid="ignore"):
+        low = z_end <= np.nanmax(z_edge, axis=1, keepdims=True) + 1.0
+    return foreign & low
 
 
 def _drop_squeezed(rid, sides: Sides, chain, flags, warnings, step):
