@@ -88,3 +88,59 @@ def load_crs(v):
     import rasterio
     with rasterio.open(v.dem) as ds:
         return ds.crs
+
+
+def test_storage_areas_carry_no_flow(tmp_path):
+    """A user polygon over the outer left floodplain ([sections] storage_areas) makes that ground storage.
+
+    Reference: uniform flow, so Q = sum K_i S^(1/2) over the subdivisions (Chow 1959, ch. 6) with the
+    storage strip's conveyance zero, solved with scipy brentq on the analytic valley profile of
+    tests/valleys.py (channel and banks |y| < 14 m, flat floodplain to 54 m, walls 1:20 beyond).
+    """
+    from scipy.optimize import brentq
+    from shapely.geometry import box
+
+    v = make_valley(tmp_path, length=600.0, classes=("channel", "grass"))
+    q, n_ch, n_fp = 450.0, 0.03, 0.05
+    gpd.GeoDataFrame({"name": ["pond"]}, geometry=[box(v.x0 - 50, v.yc + 34.0, v.x0 + 700, v.yc + 90)],
+                     crs=str(load_crs(v))).to_file(tmp_path / "ponds.gpkg", driver="GPKG")
+    base = write_config(tmp_path, v, discharge=q, n=n_ch, classes={"channel": n_ch, "grass": n_fp})
+    plain = run(base)
+    base.write_text(base.read_text().replace("width = 120.0", 'width = 120.0\nstorage_areas = "ponds.gpkg"')
+                    .replace('output_dir = "out"', 'output_dir = "out_storage"'))
+    assert load_config(base).input_files()["[sections] storage_areas"] == tmp_path / "ponds.gpkg"
+    stored = run(base)
+    secs = gpd.read_file(stored.paths["sections"], layer="sections")
+    assert secs["flags"].str.contains("storage").all()
+    np.testing.assert_allclose(secs["storage_m"], 60.0 - 34.0, atol=1e-6)
+
+    y = np.linspace(-60.0, 60.0, 240001)
+    off = np.abs(y)
+    ground = np.clip(v.bank_height - (off - v.bottom_width / 2) / v.side_slope, 0.0, v.bank_height)
+    ground = v.bank_height - ground + np.clip(off - 54.0, 0.0, None) * 0.05         # above the bed
+    dy = y[1] - y[0]
+
+    def depth_for(store: bool) -> float:
+        parts = [(y > 34.0, None), ((y > 14.0) & (y <= (34.0 if store else 60.0)), n_fp),
+                 (np.abs(y) <= 14.0, n_ch), (y < -14.0, n_fp)]
+        if not store:
+            parts = parts[1:]
+
+        def f(h):
+            total = 0.0
+            for mask, nn in parts:
+                d = np.clip(h - ground[mask], 0.0, None)
+                area = d.sum() * dy
+                wet = d > 0
+                perim = np.sum(np.hypot(dy, np.diff(ground[mask]))[wet[1:] | wet[:-1]])
+                if nn is not None and area > 0:
+                    total += area * (area / perim) ** (2 / 3) / nn
+            return total * np.sqrt(v.slope) - q
+        return brentq(f, 4.01, 8.0, xtol=1e-6)
+
+    for res, store in ((plain, False), (stored, True)):
+        p = res.profile
+        mid = p[(p.chainage_m > 100) & (p.chainage_m < 500)]
+        d = mid["wse_m"] - v.bed_at(v.x0 + mid["chainage_m"])
+        assert np.all(np.abs(d - depth_for(store)) < 0.01), (store, d.describe(), depth_for(store))
+    assert depth_for(True) > depth_for(False) + 0.03

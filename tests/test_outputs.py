@@ -186,3 +186,13 @@ def test_every_flag_word_the_code_can_emit_is_documented():
     emitted -= {"critical_assumed"}          # renamed to critical_fallback with the solver kernel
     assert emitted, "the scan found no flag words"
     assert emitted <= set(FLAGS), sorted(emitted - set(FLAGS))
+
+
+def test_readme_flag_table_is_the_generated_one():
+    """README's flag table between the markers equals geoflow.flags.markdown_table() (common practice)."""
+    from pathlib import Path
+
+    from geoflow.flags import markdown_table
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    start, end = "<!-- flags:start -->\n", "<!-- flags:end -->"
+    assert text[text.index(start) + len(start):text.index(end)] == markdown_table()

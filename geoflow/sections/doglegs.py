@@ -121,15 +121,14 @@ def across_valley_lengths(sides: Sides, valley, half_width: float) -> np.ndarray
     along it, so the rest of the side is (half_width - offset at its start) / cos.
     """
     bent = np.isfinite(sides.bend)
-    start = np.where(bent[..., None], sides.centre[:, None, :] + sides.bend[..., None] * sides.first,
-                     sides.centre[:, None, :])
+    lead = np.where(bent, sides.bend, 0.0)
+    start = sides.centre[:, None, :] + lead[..., None] * sides.first
     u, vn = valley.frame(start.reshape(-1, 2))
     foot = shapely.get_coordinates(shapely.line_interpolate_point(valley.axis, u))
     offset = np.einsum("pk,pk->p", start.reshape(-1, 2) - foot, vn).reshape(bent.shape)
     rate = np.einsum("nsk,nsk->ns", sides.second, vn.reshape(sides.second.shape))   # d(offset)/d(length)
     outward = np.where(rate >= 0, 1.0, -1.0)
     rest = (half_width - outward * offset) / np.maximum(np.abs(rate), 0.5)
-    lead = np.where(bent, sides.bend, 0.0)
     return np.clip(lead + np.maximum(rest, 0.0), np.where(bent, sides.bend, 0.0), 2.0 * half_width)
 
 

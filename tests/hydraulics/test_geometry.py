@@ -120,3 +120,47 @@ def test_random_sections_against_shapely(z, steps, frac, ns):
     assert p.top_width[0] == pytest.approx(top, abs=1e-6)
     if p.conveyance[0] > 0:
         assert p.alpha[0] >= p.beta[0] - 1e-12 and p.beta[0] >= 1 - 1e-12
+
+
+def test_storage_strip_has_area_and_width_but_no_conveyance():
+    # Compound rectangle, floodplains 50 m at 2 m, channel 10 m at 0 m; the outer 20 m of the left
+    # floodplain is storage. Hand arithmetic with Manning, K = (1/n) A R^(2/3) (Chow 1959, ch. 6):
+    # the left floodplain conveys only over its inner 30 m (its wetted perimeter there: 30 m of bed;
+    # the vertical division between storage and conveying ground carries no perimeter), while area
+    # and top width count the storage too. Both evaluation paths (clipping and level tables) agree.
+    x = [0, 20, 50, 50, 60, 60, 110]
+    z = [2, 2, 2, 0, 0, 2, 2]
+    n = [0.06, 0.06, 0.03, 0.03, 0.03, 0.06]
+    part = [0, 0, 1, 1, 1, 2]
+    storage = [True, False, False, False, False, False]
+    t = build_table(x, z, n, part, storage=storage)
+    plain = build_table(x, z, n, part)
+    w = np.array([2.5, 3.0])
+    p, depth = properties(t, w), w - 2.0
+    np.testing.assert_allclose(p.area, properties(plain, w).area, rtol=1e-12)
+    np.testing.assert_allclose(p.top_width, 110.0, rtol=1e-12)
+    k_left = (30 * depth) * ((30 * depth) / 30.0) ** (2 / 3) / 0.06
+    np.testing.assert_allclose(p.part_conveyance[:, 0], k_left, rtol=1e-12)
+    np.testing.assert_allclose(p.part_conveyance[:, 1:], properties(plain, w).part_conveyance[:, 1:], rtol=1e-12)
+    from geoflow.hydraulics.geometry import fast_properties, flow_state
+    fast = fast_properties(t, w)
+    exact = properties(t, w)
+    np.testing.assert_allclose(fast.conveyance, exact.conveyance, rtol=1e-10)
+    np.testing.assert_allclose(fast.area, exact.area, rtol=1e-10)
+    a, k, alpha, part_k = flow_state(t, w)
+    np.testing.assert_allclose(k, exact.conveyance, rtol=1e-10)
+    # the velocity head alpha V^2 / 2g = Q^2 sum(K_i^3 / A_i^2) / (2 g K^3) ignores the storage area
+    q, g = 50.0, 9.80665
+    sub_k, sub_a = exact.sub_conveyance, exact.sub_area
+    flow = sub_k > 0
+    expected = q * q * np.sum(np.where(flow, sub_k ** 3 / np.where(flow, sub_a, 1.0) ** 2, 0.0), axis=1) / (
+        2 * g * exact.conveyance ** 3)
+    np.testing.assert_allclose(alpha * q * q / (2 * g * a * a), expected, rtol=1e-10)
+
+
+def test_storage_never_touches_the_channel_and_is_checked():
+    x, z = [0, 10, 10, 20, 20, 30], [2, 2, 0, 0, 2, 2]
+    t = build_table(x, z, [0.05] * 5, [0, 1, 1, 1, 2], storage=[False, True, True, True, False])
+    assert t.storage is None                              # channel segments cannot be storage
+    with pytest.raises(GeometryError, match="storage needs one value per segment"):
+        build_table(x, z, [0.05] * 5, [0, 1, 1, 1, 2], storage=[True, False])
