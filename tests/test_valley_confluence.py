@@ -41,7 +41,6 @@ def capacity(spec, slope, n=N_CH):
 def confluence(folder, XT):
     X, Y, transform = grid(0.0, 0.0, 1800.0, 1400.0, CELL)
     fp_main = 40.0 - S_MAIN * X                                    # main floodplain
-    bed_main = 40.0 - S_MAIN * X - MAIN["depth"]
     bed_trib = (40.0 - S_MAIN * XT - MAIN["depth"]) + S_TRIB * (YC - Y)   # meets the main bed at (XT, YC)
     mouth = YC - MAIN["floor"]                                     # the side valley opens here
     fp_trib = np.where(Y < mouth, bed_trib + TRIB["depth"], fp_main)

@@ -100,3 +100,38 @@ def test_meander_in_a_wide_valley(tmp_path, wavelength, omega, spacing):
     assert max(spread) < 0.03
     assert abs(slope / SLOPE - 1.0) < 0.05
     assert depth.min() > 0.3 and depth.max() - depth.min() < 0.04
+
+
+def test_irregular_meander_whose_belt_bends(tmp_path):
+    """Meanders of several lengths mixed (random phases, seeded) whose belt bends gently, carved in
+    a plain falling along x: no two sections cross (shapely) and, along each side, section ends keep
+    a spacing within a factor 3 of the mean (no fans), also where the channel runs across the belt."""
+    rng = np.random.default_rng(5)
+    s = np.arange(0, 3200, 0.5)
+    theta = 0.25 * np.sin(2 * np.pi * s / 3000)
+    for _ in range(4):
+        theta += rng.uniform(0.2, 0.5) * np.sin(2 * np.pi * s / rng.uniform(300, 900) + rng.uniform(0, 6))
+    x = 300 + np.concatenate([[0], np.cumsum(np.cos(theta[:-1]) * 0.5)])
+    y = np.concatenate([[0], np.cumsum(np.sin(theta[:-1]) * 0.5)])
+    y += 1300 - y.mean()
+    line = LineString(np.column_stack((x, y))[::4])
+    X, Y, transform = grid(0.0, 0.0, x.max() + 300, 2600.0, CELL)
+    d_ch, _ = cKDTree(np.column_stack((x, y))).query(np.column_stack((X.ravel(), Y.ravel())))
+    z = Z0 - SLOPE * X - trapezoid_depth(d_ch.reshape(X.shape), B_HALF, SIDE, DEPTH)
+    write_dem(tmp_path / "dem.tif", z, transform)
+    write_reaches(tmp_path / "centrelines.gpkg", {"m": line})
+    write_cover(tmp_path / "landcover.gpkg", [(box(0, 0, x.max() + 300, 2600.0), "meadow"),
+                                             (line.buffer(B_HALF + SIDE * DEPTH), "channel")])
+    cfg = valley_config(tmp_path, {"m": (40.0, 700.0)}, [("flood", 300.0)],
+                        f'{{ type = "normal_depth", slope = {SLOPE} }}', {"channel": 0.035, "meadow": 0.045})
+    res = run(cfg)
+    assert not res.failed
+    geoms = np.asarray(gpd.read_file(res.paths["sections"], layer="sections").geometry.values, dtype=object)
+    hits = shapely.intersects(geoms[:, None], geoms[None, :])
+    np.fill_diagonal(hits, False)
+    assert not hits.any()
+    for k in (0, -1):
+        ends = np.array([np.asarray(g.coords)[k] for g in geoms])
+        gap = np.hypot(*np.diff(ends, axis=0).T)
+        mean = gap.mean()
+        assert gap.min() > mean / 3 and gap.max() < 3 * mean, (gap.min(), gap.max(), mean)

@@ -14,7 +14,6 @@ References:
 import geopandas as gpd
 import numpy as np
 import pytest
-import shapely
 from scipy.optimize import brentq
 from shapely.geometry import LineString, box
 from valleys import grid, trapezoid_depth, valley_config, write_cover, write_dem, write_reaches

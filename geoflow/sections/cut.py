@@ -20,8 +20,6 @@ evenly from the centreline outwards, so the centreline point is always a ground 
 """
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import shapely
 from shapely.geometry import LineString

@@ -15,8 +15,8 @@ sections). Side lengths are measured along the path, so a side can be shortened 
 reach, at a crossing) without changing its route.
 
 Where the floodplain leg would cross the reach's own centreline again (inside a tight meander
-loop, where the channel turns across the valley) that side keeps the channel normal instead: in
-the meander belt the flow follows the channel.
+loop, where the channel turns across the valley) that side keeps the channel normal farther, across
+the meander belt, and bends beyond it: in the meander belt the flow follows the channel.
 """
 from __future__ import annotations
 
@@ -109,7 +109,7 @@ def dogleg_sides(centre: np.ndarray, normal: np.ndarray, bend: np.ndarray, lengt
     bend = np.where(straight, np.inf, bend)
     sides = Sides(centre, first, bend, second, np.asarray(length, dtype=float), leg)
     if own_line is not None:
-        sides = _meander_loops_straight(sides, own_line)
+        sides = _across_meander_loops(sides, own_line, valley)
     return sides
 
 
@@ -132,23 +132,47 @@ def across_valley_lengths(sides: Sides, valley, half_width: float) -> np.ndarray
     return np.clip(lead + np.maximum(rest, 0.0), np.where(bent, sides.bend, 0.0), 2.0 * half_width)
 
 
-def _meander_loops_straight(sides: Sides, own_line) -> Sides:
-    """Sides whose floodplain leg crosses the own centreline keep the channel normal instead."""
+def _across_meander_loops(sides: Sides, own_line, valley, tries: int = 40) -> Sides:
+    """Sides whose floodplain leg would cross the own centreline again bend farther out instead.
+
+    Inside a meander loop, where the channel runs across the valley, the side keeps the channel
+    normal across the meander belt: the bend moves out by a fortieth of the side's length at a time
+    until the leg beyond it clears the centreline; a side that never clears stays straight.
+    """
     bent = sides.is_bent()
     if not bent.any():
         return sides
     n, s = np.nonzero(bent)
-    start = sides.centre[n] + (sides.bend[n, s] + 1e-6)[:, None] * sides.first[n, s]
-    end = sides.points(sides.length[..., None])[n, s, 0]
-    legs = shapely.linestrings(np.stack((start, end), axis=1))
-    crossing = shapely.intersects(legs, own_line)
+    crossing = shapely.intersects(_legs(sides, n, s, sides.bend[n, s]), own_line)
     if not crossing.any():
         return sides
-    bend = sides.bend.copy()
-    second = sides.second.copy()
-    bend[n[crossing], s[crossing]] = np.inf
-    second[n[crossing], s[crossing]] = sides.first[n[crossing], s[crossing]]
+    n, s = n[crossing], s[crossing]
+    bend, second = sides.bend.copy(), sides.second.copy()
+    bend[n, s], second[n, s] = np.inf, sides.first[n, s]           # straight unless a later bend clears
+    todo = np.ones(n.size, dtype=bool)
+    for j in range(1, tries + 1):
+        b = sides.bend[n, s] + j * sides.length[n, s] / tries
+        ok = todo & (b < sides.length[n, s])
+        if not ok.any():
+            break
+        knee = sides.centre[n[ok]] + b[ok, None] * sides.first[n[ok], s[ok]]
+        _, vn = valley.frame(knee)
+        vn *= np.where(np.einsum("pk,pk->p", vn, sides.first[n[ok], s[ok]]) < 0, -1.0, 1.0)[:, None]
+        leg = shapely.linestrings(np.stack((knee + 1e-6 * vn, knee + (sides.length[n[ok], s[ok]] - b[ok])[:, None] * vn),
+                                           axis=1))
+        clear = ~shapely.intersects(leg, own_line)
+        idx = np.flatnonzero(ok)[clear]
+        bend[n[idx], s[idx]] = b[idx]
+        second[n[idx], s[idx]] = vn[clear]
+        todo[idx] = False
     return replace(sides, bend=bend, second=second)
+
+
+def _legs(sides: Sides, n, s, bend):
+    """Floodplain legs (just beyond the bend to the side's end) of the sides (n, s)."""
+    start = sides.centre[n] + (bend + 1e-6)[:, None] * sides.first[n, s]
+    end = sides.points(sides.length[..., None])[n, s, 0]
+    return shapely.linestrings(np.stack((start, end), axis=1))
 
 
 def crossing_pairs(lines) -> tuple[np.ndarray, np.ndarray]:

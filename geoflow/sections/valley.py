@@ -11,6 +11,11 @@ Pure geometry on shapely/numpy/scipy. Method (our own; no published source):
 2. Axis. The resampled centreline is smoothed by a Gaussian of sigma = one half-wavelength (at least
    ``width`` / 4, at most a third of the line's length). For a sine-generated meander this leaves
    exp(-pi^2 / 2) = 0.7 % of the lateral swing, so the axis runs down the middle of the meander belt.
+   Where meanders of several lengths mix, the axis may still bend more tightly than the sections
+   are wide; sigma then grows by 40 % at a time until the axis's smallest radius of curvature is at
+   least ``width``. Its normals (the floodplain legs) meet at that radius on the inside of a bend,
+   so at the sections' ends, ``width`` / 2 from the axis, legs stay at least half as far apart as
+   on the axis: they do not fan.
    Beyond the ends the line is continued for the filter by reflection in a frame aligned with its
    last stretch: point reflection along it (the line keeps going the same way) and mirror
    reflection across it (a bend that ends the line does not pull the axis sideways).
@@ -69,13 +74,27 @@ def valley_of(centreline: LineString, width: float, step: float | None = None) -
     pts = shapely.get_coordinates(shapely.line_interpolate_point(line, np.linspace(0.0, length, count + 1)))
     ds = length / count
     half = meander_half_wavelength(pts, ds)
-    sigma = max(0.25 * float(width), half or 0.0)
-    sigma = min(sigma, length / 3.0)
+    sigma = min(max(0.25 * float(width), half or 0.0), length / 3.0)
     smooth = smooth_line(pts, sigma / ds)
+    while sigma < length / 3.0 and min_radius(smooth, ds, 0.25 * float(width)) < float(width):
+        sigma = min(1.4 * sigma, length / 3.0)
+        smooth = smooth_line(pts, sigma / ds)
     every = max(int(sigma / (20.0 * ds)), 1)                  # the smooth axis needs few vertices
     axis = LineString(np.vstack((smooth[::every], smooth[-1:])) if (len(smooth) - 1) % every else smooth[::every])
     belt = float(np.max(shapely.distance(shapely.points(pts[::max(every // 4, 1)]), axis)))
     return Valley(axis=axis, half_wavelength=half, sigma=sigma, belt_half_width=belt)
+
+
+def min_radius(pts: np.ndarray, ds: float, window: float) -> float:
+    """Smallest radius of curvature (m) of a polyline sampled every ``ds``, its turning averaged over
+    ``window`` m (so a kink between two samples does not count as a point of infinite curvature)."""
+    d = np.diff(pts, axis=0)
+    heading = np.unwrap(np.arctan2(d[:, 1], d[:, 0]))
+    k = max(int(round(window / ds)), 1)
+    if heading.size <= k:
+        return float("inf")
+    turn = np.abs(heading[k:] - heading[:-k])
+    return float(k * ds / max(turn.max(), 1e-12))
 
 
 def meander_half_wavelength(pts: np.ndarray, ds: float) -> float | None:

@@ -51,6 +51,8 @@ def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, r
         end = own_reach_end(territory, who, line, step, drafting)
     valley = valley_of(line, width)
     ctx = _Context(rid, line, dem, float(spacing), float(width), step, h, valley, channel)
+    if territory is not None and end >= length - 1e-6:
+        end = _whole_channel_leg(ctx, territory, who, drafting, length)     # a line drawn to the other's bank
     if end < length - 1e-6:
         end = _whole_channel_leg(ctx, territory, who, drafting, max(end - 0.5 * step, 0.0))
         warnings.append(f"reach {rid}: sections end at chainage {end:.1f} m of {length:.1f} m, at the edge of "
@@ -58,6 +60,8 @@ def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, r
                         "one meets its channel)")
     chain = chainages(rid, end, float(spacing), even_end=True)
     ctx.bent = layout == "valley" or _beyond_belt(ctx, chain)
+    if ctx.bent:
+        chain = _spread_along_valley(ctx, chain, warnings)
     if strips is not None or ctx.bent:
         chain = _off_strips(ctx, chain, strips, flags_extra, warnings)
     area = (territory, who, drafting)
@@ -200,6 +204,30 @@ def _beyond_belt(ctx: _Context, chain) -> bool:
     centre, normal = ctx.frame(chain)
     edges, _ = channel_edges(centre, normal, 0.5 * ctx.width, ctx.step, ctx.dem, ctx.channel)
     return 0.5 * ctx.width > ctx.valley.belt_half_width + float(np.median(edges.max(axis=1)))
+
+
+def _spread_along_valley(ctx: _Context, chain, warnings, share: float = 0.3) -> np.ndarray:
+    """Sections left out where the channel runs across the valley and their floodplain legs would bunch.
+
+    Along each side of the valley the legs of consecutive sections must be at least ``share`` of the
+    median along-valley gap apart (measured along the valley axis where the legs start); a section
+    closer than that to the last one kept is left out (never the first or the last section).
+    """
+    sides, _ = ctx.sides(chain)
+    start = sides.points(np.minimum(np.where(np.isfinite(sides.bend), sides.bend, 0.0), sides.length)[..., None])
+    u = np.stack([ctx.valley.frame(start[:, k, 0])[0] for k in (0, 1)], axis=1)      # (N, 2)
+    gap = np.median(np.abs(np.diff(u, axis=0)), axis=0)
+    keep = [0]
+    for k in range(1, chain.size - 1):
+        if np.all(u[k] - u[keep[-1]] >= share * gap):
+            keep.append(k)
+    keep.append(chain.size - 1)
+    if len(keep) == chain.size:
+        return chain
+    warnings.append(f"reach {ctx.rid}: {chain.size - len(keep)} section(s) left out where the channel runs across "
+                    "the valley (their floodplain legs would bunch), e.g. at chainage "
+                    f"{chain[sorted(set(range(chain.size)) - set(keep))[0]]:.1f} m")
+    return chain[keep]
 
 
 def _off_strips(ctx: _Context, chain, strips, flags_extra, warnings) -> np.ndarray:
