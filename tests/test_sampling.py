@@ -63,3 +63,13 @@ def test_sections_split_exactly_at_landcover_edges(tmp_path):
         mid = 0.5 * (sec.station[:-1] + sec.station[1:])
         expected = np.where(mid < edges[0], 0.1, np.where(mid < edges[1], 0.04, 0.03))
         np.testing.assert_allclose(sec.n, expected)
+
+
+def test_grid_stations_of_a_piece_between_two_grid_lines():
+    # Hand geometry: cell centres at 0.5, 1.5, ... (1 m cells from 0); a 0.3 m piece from x = 0.6 to
+    # 0.9 at y = 0.6 crosses no row or column of centres, so only its ends (and centre) are kept.
+    from geoflow.sections import grid_stations
+    t = from_origin(0.0, 10.0, 1.0, 1.0)
+    st = grid_stations(t, np.array([0.6, 0.6]), np.array([0.9, 0.6]), np.array([0.0, 0.15, 0.3]), 1.0,
+                       centre_station=0.15)
+    np.testing.assert_allclose(st, [0.0, 0.15, 0.3])

@@ -5,7 +5,7 @@ Pure geometry on shapely/numpy; the DEM is reached only through ``dem.sample(x, 
 Channel edges along the channel normal come from the channel land-cover polygons when given (the
 piece of the normal inside a channel polygon that holds, or is nearest to, the centre point), or
 else from the ground by break in slope (:func:`geoflow.sections.banks.detect_banks`). The bend of
-a dog-leg lies ``margin`` beyond each edge: max(2 sample steps, a quarter of the channel's top
+a dog-leg lies ``margin`` beyond each edge: max(a sample step, 0.15 x the channel's top
 width), so the whole channel and its banks lie on the channel leg (common practice, no source).
 """
 from __future__ import annotations
@@ -35,7 +35,7 @@ def channel_edges(centre: np.ndarray, normal: np.ndarray, max_half: float, step:
 def bend_distances(edges: np.ndarray, step: float) -> np.ndarray:
     """(N, 2) bend distances from the centre: each edge plus the margin of the module notes."""
     width = edges.sum(axis=1, keepdims=True)
-    return edges + np.maximum(2.0 * step, 0.25 * width)
+    return edges + np.maximum(step, 0.15 * width)
 
 
 def _edges_from_polygons(centre, normal, max_half, channel) -> np.ndarray:

@@ -47,7 +47,9 @@ def grid_stations(transform, start: np.ndarray, end: np.ndarray, stations: np.nd
         return stations
     cand = np.sort(np.concatenate(extra))
     cand = cand[(cand > 0) & (cand < total)]
-    near = np.min(np.abs(cand[:, None] - stations[None, :]), axis=1) < 0.01 * step if cand.size else cand
+    if cand.size == 0:
+        return _fill_gaps(stations, step)
+    near = np.min(np.abs(cand[:, None] - stations[None, :]), axis=1) < 0.01 * step
     merged = np.union1d(stations, cand[~near])
     keep = np.concatenate(([True], np.diff(merged) > 0.01 * step))   # drop near-duplicate crossings
     keep[-1] = True
