@@ -10,7 +10,7 @@ Pure geometry on shapely/numpy: the DEM is reached only through ``dem.sample(x, 
 - ``banks``: channel edges from breaks in the ground slope;
 - ``lengths``: channel and floodplain reach lengths between neighbouring sections;
 - ``valley``, ``valleycut``, ``doglegs``, ``channel``: dog-leg sections that follow the valley;
-- ``territory``: which reach owns each point of the valley floor (reaches that meet);
+- ``territory``: which reach owns each point of the valley floor; ``meeting``: its use in a cut;
 - ``strips``: sections kept off roads and embankments; ``storage``: parts that carry no flow;
 - ``stations``: chainages, the channel frame and where sections are sampled;
 - ``common``: sampling, gap filling and checks shared by the above.

@@ -30,6 +30,7 @@ from .channel import bend_distances, channel_edges
 from .common import build_sections, sample_many
 from .doglegs import Sides, across_valley_lengths, crossing_pairs, dogleg_sides, shorten_crossings
 from .lengths import flow_path_lengths
+from .meeting import drop_squeezed, edges_added, low_end_at_other_reach, off_other_channels, whole_channel_leg
 from .sidelimits import adaptive_halves
 from .stations import chainages, frame, grid_stations, stations_about_centre
 from .territory import own_extent, own_reach_end
@@ -52,9 +53,9 @@ def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, r
     valley = valley_of(line, width)
     ctx = _Context(rid, line, dem, float(spacing), float(width), step, h, valley, channel)
     if territory is not None and end >= length - 1e-6:
-        end = _whole_channel_leg(ctx, territory, who, drafting, length)     # a line drawn to the other's bank
+        end = whole_channel_leg(ctx, territory, who, drafting, length)     # a line drawn to the other's bank
     if end < length - 1e-6:
-        end = _whole_channel_leg(ctx, territory, who, drafting, max(end - 0.5 * step, 0.0))
+        end = whole_channel_leg(ctx, territory, who, drafting, max(end - 0.5 * step, 0.0))
         warnings.append(f"reach {rid}: sections end at chainage {end:.1f} m of {length:.1f} m, at the edge of "
                         "another reach's channel (its junction boundary still reads that reach's level where this "
                         "one meets its channel)")
@@ -66,13 +67,13 @@ def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, r
         chain = _off_strips(ctx, chain, strips, flags_extra, warnings)
     area = (territory, who, drafting)
     if territory is not None and ctx.bent:
-        chain = _off_other_channels(ctx, chain, territory, who, flags_extra, warnings)
+        chain = off_other_channels(ctx, chain, territory, who, flags_extra, warnings)
     if territory is not None:
         scratch: list[str] = []
         sides, _ = _laid_out(ctx, chain, area, rise, rise_margin, repair, flags_extra, scratch)
-        chain = _edges_added(ctx, chain, sides, area, flags_extra)
+        chain = edges_added(ctx, chain, sides, area, flags_extra)
     sides, flags = _laid_out(ctx, chain, area, rise, rise_margin, repair, flags_extra, warnings)
-    sides, chain, flags = _drop_squeezed(rid, sides, chain, flags, warnings, step)
+    sides, chain, flags = drop_squeezed(rid, sides, chain, flags, warnings, step)
     lines = sides.lines()
     stations = [_stations(sides, k, step, dem, follow_grid) for k in range(chain.size)]
     pts = [shapely.get_coordinates(shapely.line_interpolate_point(lines[k], st)) for k, st in enumerate(stations)]
@@ -108,95 +109,11 @@ class _Context:
         return sides.with_length(across_valley_lengths(sides, self.valley, 0.5 * self.width)), found
 
 
-def _off_other_channels(ctx: _Context, chain, territory, who, flags_extra, warnings) -> np.ndarray:
-    """Sections whose channel leg would reach into another reach's channel moved along the centreline.
-
-    At a confluence a section centred where the tributary's channel meets this one would end in
-    that channel's trench. It is moved, a sample step at a time (at most half a spacing, keeping a
-    fifth of a spacing from its neighbours), to the nearest position whose channel leg is clear.
-    """
-    foreign = territory.other_channels(who)
-    if foreign.is_empty:
-        return chain
-
-    def touches(c) -> np.ndarray:
-        sides, _ = ctx.sides(np.atleast_1d(np.asarray(c, dtype=float)))
-        reach = np.minimum(sides.channel_leg, sides.length)
-        ends = sides.centre[:, None, :] + reach[..., None] * sides.first
-        return shapely.intersects(shapely.linestrings(ends), foreign)
-
-    new = chain.copy()
-    for k in np.flatnonzero(touches(chain)):
-        lo = new[k - 1] + 0.2 * ctx.spacing if k > 0 else chain[k]
-        hi = new[k + 1] - 0.2 * ctx.spacing if k + 1 < chain.size else chain[k]
-        j = np.arange(1, int(0.5 * ctx.spacing / ctx.step) + 1) * ctx.step
-        cand = np.concatenate([(chain[k] - d, chain[k] + d) for d in j])
-        cand = cand[(cand >= lo) & (cand <= hi)]
-        clear = ~touches(cand) if cand.size else np.zeros(0, dtype=bool)
-        if not clear.any():
-            continue
-        new[k] = float(cand[int(np.argmax(clear))])
-        flags_extra.setdefault(float(new[k]), []).append("moved_off_confluence")
-        warnings.append(f"reach {ctx.rid}: section at chainage {chain[k]:.1f} m would end in another reach's "
-                        f"channel; moved to chainage {new[k]:.1f} m")
-    return new
-
-
 def _laid_out(ctx, chain, area, rise, rise_margin, repair, flags_extra, warnings):
     """Limited sides of the sections at ``chain`` and their flags."""
     flags: list[list[str]] = [list(flags_extra.get(float(c), [])) for c in chain]
     sides, _ = ctx.sides(chain)
     return _limit(ctx, sides, chain, rise, rise_margin, area, repair, flags, warnings), flags
-
-
-def _edges_added(ctx, chain, sides: Sides, area, flags_extra) -> np.ndarray:
-    """Sections added where another reach's area begins between two sections (the receiving river's
-    sections bend around a tributary's mouth area instead of leaving a gap beside it).
-
-    Where one of two neighbouring sections is cut short by another reach's area on a side and the
-    other is not (their lengths differ by over a quarter of the half-width), the chainage between
-    them where that side's kept length falls is found by bisection and a section added a sample
-    step before the fall, on the long side.
-    """
-    territory, who, drafting = area
-    add = []
-    half = 0.5 * ctx.width
-    for k in range(chain.size - 1):
-        for side in (0, 1):
-            a, b = sides.length[k, side], sides.length[k + 1, side]
-            if abs(a - b) < 0.25 * half:
-                continue
-            long_at_lo = a > b
-            lo, hi = float(chain[k]), float(chain[k + 1])
-            target = 0.5 * (a + b)
-            for _ in range(8):
-                mid = 0.5 * (lo + hi)
-                one, _ = ctx.sides(np.array([mid]))
-                kept = own_extent(territory, who, one, ctx.step, 0.5 * ctx.step, drafting)[0, side]
-                if (kept >= target) == long_at_lo:
-                    lo = mid
-                else:
-                    hi = mid
-            c = lo - ctx.step if long_at_lo else hi + ctx.step        # a step clear of the other area
-            if min(c - chain[k], chain[k + 1] - c) > 2.0 * ctx.step:
-                add.append(c)
-    return np.unique(np.concatenate((chain, add))) if add else chain
-
-
-def _whole_channel_leg(ctx: _Context, territory, who, drafting, end: float) -> float:
-    """The last chainage up to ``end`` whose section keeps its whole channel leg in the reach's territory.
-
-    Where a tributary meets the receiving channel at an angle, a section centred on that channel's
-    edge would have one side cut to nothing; the last section moves upstream, a sample step at a
-    time (at most a spacing), until both sides reach their bends.
-    """
-    for back in np.arange(0.0, ctx.spacing + ctx.step, ctx.step):
-        c = max(end - back, 0.0)
-        sides, _ = ctx.sides(np.array([c]))
-        dist = np.minimum(sides.channel_leg, sides.length)[..., None] * np.linspace(0.0, 1.0, 9)[None, None, :]
-        if territory.owns(who, sides.points(dist).reshape(-1, 2), drafting).all():
-            return c
-    return end
 
 
 def _beyond_belt(ctx: _Context, chain) -> bool:
@@ -305,7 +222,7 @@ def _limit(ctx, sides: Sides, chain, rise, rise_margin, area, repair, flags, war
     if territory is not None:
         before = sides.length
         sides = sides.with_length(own_extent(territory, who, sides, step, 0.5 * step, drafting))
-        cut = (sides.length < before - 1e-9) | _low_end_at_other_reach(ctx, sides, territory, who)
+        cut = (sides.length < before - 1e-9) | low_end_at_other_reach(ctx, sides, territory, who)
         for k, side in zip(*np.nonzero(cut)):
             flags[k].append("left_end_at_other_reach" if side == 0 else "right_end_at_other_reach")
         for k in np.flatnonzero((sides.length < before - 1e-9).any(axis=1)):
@@ -336,39 +253,6 @@ def _limit(ctx, sides: Sides, chain, rise, rise_margin, area, repair, flags, war
                                 f"only {total[k]:.1f} m of its {ctx.width:g} m width (sharp bend); smooth the "
                                 "centreline, or reduce [sections] width or spacing")
     return sides
-
-
-def _low_end_at_other_reach(ctx, sides: Sides, territory, who) -> np.ndarray:
-    """(N, 2) sides whose full-length end borders another reach's area (by the final rule) on ground no
-    more than 1 m above the section's higher channel edge: water spilling there is that reach's."""
-    beyond = sides.points((sides.length + 2.0 * ctx.step)[..., None])[:, :, 0]
-    foreign = ~territory.owns(who, beyond.reshape(-1, 2)).reshape(beyond.shape[:2])
-    if not foreign.any():
-        return foreign
-    ends = sides.points(sides.length[..., None])[:, :, 0]
-    edge = sides.points(np.minimum(np.where(sides.channel_leg > 0, sides.channel_leg, ctx.step), sides.length)[..., None])
-    z_end, z_edge = (sample_many(ctx.dem, [p[..., 0].ravel()], [p[..., 1].ravel()])[0].reshape(foreign.shape)
-                     for p in (ends, edge[:, :, 0]))
-    with np.errstate(invalid="ignore"):
-        low = z_end <= np.nanmax(z_edge, axis=1, keepdims=True) + 1.0
-    return foreign & low
-
-
-def _drop_squeezed(rid, sides: Sides, chain, flags, warnings, step):
-    """Sections left with under two sample steps between other reaches' areas are dropped."""
-    total = sides.length.sum(axis=1)
-    keep = total >= 2.0 * step
-    if keep.all():
-        return sides, chain, flags
-    if keep.sum() < 2:
-        k = int(np.flatnonzero(~keep)[0])
-        raise GeometryError(f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) keeps only {total[k]:.1f} m between "
-                            "other reaches' areas and fewer than 2 sections remain; end this reach's centreline where "
-                            "it meets the other reach")
-    for k in np.flatnonzero(~keep):
-        warnings.append(f"reach {rid}: the section at chainage {chain[k]:.1f} m lies in another reach's area (it kept "
-                        f"{total[k]:.1f} m) and was left out")
-    return sides.subset(keep), chain[keep], [f for f, k in zip(flags, keep) if k]
 
 
 def _stations(sides: Sides, k: int, step: float, dem, follow_grid: bool) -> np.ndarray:
