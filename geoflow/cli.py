@@ -15,11 +15,17 @@ DESCRIPTION = (
 )
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with usage mistakes reported on one line (exit status 2), like every other error."""
+
+    def error(self, message: str):
+        self.exit(2, f"{self.prog}: error: {message} (see {self.prog.split()[0]} --help)\n")
+
+
 def _parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="geoflow", description=DESCRIPTION,
-                                formatter_class=argparse.RawDescriptionHelpFormatter)
+    p = _Parser(prog="geoflow", description=DESCRIPTION, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("--version", action="version", version=f"geoflow {__version__}")
-    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND", parser_class=_Parser)
     r = sub.add_parser("run", help="compute every reach x event of a config and write all outputs",
                        description=f"Compute every reach x event and write the outputs.\n\nCAUTION: {CAUTION}",
                        formatter_class=argparse.RawDescriptionHelpFormatter)

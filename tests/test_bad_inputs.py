@@ -286,3 +286,41 @@ def test_bad_input_is_one_line_exit_2_at_check_and_run_nothing_written(tmp_path,
         for w in words:
             assert w in err, (command[0], w, err)
         assert snapshot(tmp_path) == before, f"{command[0]} wrote or changed files"
+
+
+def _bom(tmp, v, cfg):
+    cfg.write_bytes(b"\xef\xbb\xbf" + cfg.read_bytes())
+
+
+def _crlf(tmp, v, cfg):
+    cfg.write_bytes(cfg.read_text().replace("\n", "\r\n").encode("utf-8"))
+
+
+def _geojson_centrelines(tmp, v, cfg):
+    gpd.read_file(v.centrelines).to_file(tmp / "cl.geojson", driver="GeoJSON")
+    edit(cfg, 'centrelines = "centrelines.gpkg"', 'centrelines = "cl.geojson"')
+
+
+def _shapefile_landcover(tmp, v, cfg):
+    gpd.read_file(v.landcover).to_file(tmp / "lc.shp")
+    edit(cfg, 'landcover = "landcover.gpkg"', 'landcover = "lc.shp"')
+
+
+AWKWARD_BUT_VALID = [("byte_order_mark", _bom), ("windows_line_ends", _crlf),
+                     ("geojson_centrelines", _geojson_centrelines), ("shapefile_landcover", _shapefile_landcover)]
+
+
+@pytest.mark.parametrize("mutate", [c[1] for c in AWKWARD_BUT_VALID], ids=[c[0] for c in AWKWARD_BUT_VALID])
+def test_awkward_but_valid_inputs_are_accepted(tmp_path, capsys, mutate):
+    v = make_valley(tmp_path, length=400.0, half_width=60.0, classes=("channel", "grass"))
+    cfg = write_config(tmp_path, v, discharge=20.0, n=0.03, classes={"channel": 0.03, "grass": 0.04})
+    mutate(tmp_path, v, cfg)
+    assert main(["check", str(cfg)]) == 0, capsys.readouterr().err
+
+
+@pytest.mark.parametrize("argv", [["run", "x.toml", "--workers", "x"], [], ["frob"], ["run"]])
+def test_command_line_mistakes_are_one_line(argv, capsys):
+    with pytest.raises(SystemExit) as exc:
+        main(argv)
+    err = capsys.readouterr().err.strip()
+    assert exc.value.code == 2 and len(err.splitlines()) == 1 and "--help" in err, err

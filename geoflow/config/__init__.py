@@ -63,7 +63,7 @@ def load_config(path: str | Path) -> Config:
     except OSError as exc:
         raise ConfigError(f"{path}: cannot read config ({exc.strerror})") from None
     try:
-        doc = tomllib.loads(raw.decode("utf-8"))
+        doc = tomllib.loads(raw.decode("utf-8-sig"))     # a byte-order mark (some editors add one) is fine
     except UnicodeDecodeError:
         raise ConfigError(f"{path}: not UTF-8 text; save the config as UTF-8") from None
     except tomllib.TOMLDecodeError as exc:
