@@ -135,6 +135,25 @@ def test_choked_opening_is_set_by_critical_depth():
     assert r.headwater_wse[0] == pytest.approx(y3, abs=1e-4)
 
 
+def test_a_bridge_that_obstructs_nothing_below_the_water_adds_nothing():
+    # energy conservation without friction or obstruction: the level carries across both faces
+    b = Bridge(low_chord=6.0, high_chord=7.0, length=0.0, low_flow_method="energy")
+    r = bridge_headwater([40.0, 90.0], [2.0, 3.0], b, rectangle(), rectangle(), g=G)
+    np.testing.assert_allclose(r.headwater_wse, [2.0, 3.0], atol=1e-9)
+
+
+def test_tailwater_below_critical_is_a_free_outfall():
+    # a supercritical tailwater cannot control the flow through the bridge: the result equals
+    # the one for a tailwater at critical depth (yc = (q^2/g)^(1/3), Chow 1959, from memory)
+    q = 80.0
+    yc = ((q / B) ** 2 / G) ** (1 / 3)
+    low = bridge_headwater([q], [0.5 * yc], bridge(), rectangle(), rectangle(), g=G)
+    at_critical = bridge_headwater([q], [yc], bridge(), rectangle(), rectangle(), g=G)
+    assert low.headwater_wse[0] == pytest.approx(at_critical.headwater_wse[0], abs=1e-6)
+    assert "tailwater_below_critical" in low.flags[0] and "critical_in_opening" in low.flags[0]
+    assert low.tailwater_wse[0] == 0.5 * yc
+
+
 def test_highest_method_is_the_default_and_the_maximum():
     r = bridge_headwater([80.0, 30.0, 150.0], [2.0, 3.0, 4.0], bridge(), rectangle(), rectangle(),
                          g=G)

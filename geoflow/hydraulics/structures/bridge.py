@@ -31,6 +31,9 @@ not trusted above it). Both rise with the discharge, so the headwater never fall
 discharge rises, and it is continuous where the high-flow level is the lower one at the
 onset of pressure flow (otherwise it steps up there, as the flow does).
 
+A tailwater below critical depth at the downstream face cannot control the flow through the
+bridge; every regime then starts from the critical WSE there (as a free outfall would).
+
 Flags (per event):
 - "critical_in_opening": a low-flow method found no subcritical solution inside the bridge
   (the opening chokes, Bradley's class B); the level upstream is set by critical depth in the
@@ -43,7 +46,8 @@ Flags (per event):
 - "approach_critical": the upstream face cannot carry the flow subcritically at the computed
   energy; the headwater is its critical WSE.
 - "tailwater_below_critical": the given tailwater is below critical depth at the downstream
-  face (supercritical tailwater). Check the regime of the downstream profile.
+  face (supercritical tailwater); it cannot control the bridge, and the computation used the
+  critical WSE there instead. Check the regime of the downstream profile.
 - "no_yarnell_coefficient" / "no_drag_coefficient": the "highest" rule left out Yarnell /
   momentum because the pier shape has no published coefficient; give one to include it.
 """
@@ -64,7 +68,7 @@ from geoflow.hydraulics.structures.opening import Bridge, build_faces
 DECK_PIECES = 400
 
 
-def _low_flow(q, tw, up, down, bridge: Bridge, g):
+def _low_flow(q, tw, up, down, bridge: Bridge, g, free_outfall):
     """WSE at the upstream face per method (nan where not computed), the chosen WSE and
     method name, and the low-flow flags."""
     k, cd = bridge.piers.coefficients()
@@ -81,11 +85,12 @@ def _low_flow(q, tw, up, down, bridge: Bridge, g):
         raise HydraulicsError(f"{what}: low_flow_method 'momentum' needs a pier drag "
                               "coefficient (give piers drag_coefficient)")
     if method in ("highest", "energy"):
-        out["energy"], ch, ac = energy_method(q, tw, up, down, bridge, g)
+        out["energy"], ch, ac = energy_method(q, tw, up, down, bridge, g, free_outfall)
         choked |= ch
         at_crit |= ac
     if method == "momentum" or (method == "highest" and (cd is not None or not has_piers)):
-        out["momentum"], ch, ac = momentum_method(q, tw, up, down, bridge, cd or 0.0, g)
+        out["momentum"], ch, ac = momentum_method(q, tw, up, down, bridge, cd or 0.0, g,
+                                                  free_outfall)
         choked |= ch
         at_crit |= ac
     if has_piers and k is not None and method in ("highest", "yarnell"):
@@ -175,7 +180,10 @@ def bridge_headwater(discharge, tailwater_wse, bridge: Bridge, upstream_face: Se
     just outside each face, in a common station frame."""
     q, tw = event_arrays(discharge, tailwater_wse, f"bridge {bridge.name!r}")
     up, down = build_faces(bridge, upstream_face, downstream_face)
-    per_method, wse_low, names, at_crit, flags = _low_flow(q, tw, up, down, bridge, g)
+    wc_down = critical_wse(down.full, q, g=g).wse
+    below = tw <= wc_down
+    tw_eff = np.maximum(tw, wc_down)  # a tailwater below critical does not control the bridge
+    per_method, wse_low, names, at_crit, flags = _low_flow(q, tw_eff, up, down, bridge, g, below)
     e_low = wse_low + velocity_head(up.full, wse_low, q, g)
     high = e_low >= bridge.low_chord
     wse_high, q_deck = np.full(q.size, np.nan), np.zeros(q.size)
@@ -184,7 +192,7 @@ def bridge_headwater(discharge, tailwater_wse, bridge: Bridge, upstream_face: Se
     crest_min = np.inf
     idx = np.flatnonzero(high)
     if idx.size:
-        e_high, qd, crest_min = _high_flow(q[idx], tw[idx], up, bridge, g)
+        e_high, qd, crest_min = _high_flow(q[idx], tw_eff[idx], up, bridge, g)
         w_high, crit = wse_from_energy(up.full, e_high, q[idx], g)
         wse_high[idx] = w_high
         floor = np.minimum(wse_low[idx], bridge.low_chord)
@@ -195,13 +203,12 @@ def bridge_headwater(discharge, tailwater_wse, bridge: Bridge, upstream_face: Se
         at_crit[idx[take]] = crit[take]
     energy = hw + velocity_head(up.full, hw, q, g)
     control = np.where(use_high, np.where(q_deck > 0, "overtopping", "pressure"), "free_surface")
-    wc_down = critical_wse(down.full, q, g=g).wse
     low_flags = [(word, np.asarray(mask) & ~use_high) for word, mask in flags]
     flags = flags_per_event(q.size, low_flags + [
         ("low_chord_reached", high & ~use_high),
         ("deck_weir_submerged", (q_deck > 0) & (tw > crest_min)),
         ("approach_critical", at_crit),
-        ("tailwater_below_critical", tw < wc_down - 1e-6)])
+        ("tailwater_below_critical", below)])
     detail = {"headwater_energy_method": per_method["energy"],
               "headwater_momentum_method": per_method["momentum"],
               "headwater_yarnell": per_method["yarnell"], "low_flow_method": names,

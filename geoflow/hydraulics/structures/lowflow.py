@@ -9,7 +9,9 @@ the downstream / upstream faces (``net`` opening tables), 3 = the upstream face 
   and BU (no eddy loss inside the opening), contraction loss between BU and 3 (coefficient
   times the change of velocity head; typical bridge values 0.3 / 0.5, USACE 1993,
   EM 1110-2-1416, from memory). Where a step has no subcritical solution the WSE there is
-  critical (the opening chokes: Bradley 1978 class B).
+  critical (the opening chokes: Bradley 1978 class B). Where nothing obstructs a face below
+  the water level, crossing it changes nothing and the level is carried over unchanged (the
+  switching eddy-loss rule would otherwise touch zero there without crossing it).
 - Momentum (specific force M = A ybar + beta Q^2/(gA), Chow 1959 ch. 3; balance form from
   memory): 2 -> BD: A_full ybar_full(w_BD) + beta Q^2/(g A_net) = M_2 (the water pushes on the
   downstream ends of piers and abutments with the hydrostatic force of the obstructed area);
@@ -17,6 +19,9 @@ the downstream / upstream faces (``net`` opening tables), 3 = the upstream face 
   M_3 - 1/2 C_D A_p(w_3) Q^2/(g A_3^2) = A_full ybar_full(w_BU) + beta Q^2/(g A_net(w_BU)),
   with C_D the pier drag coefficient and A_p the pier area at section 3. Each balance is solved
   on the subcritical branch; where none exists the opening chokes and the WSE is critical.
+- A tailwater at critical depth (the bridge module raises a lower one to it) is a free
+  outfall: both balances then put critical depth at BD (the limit of a subcritical tailwater
+  falling to critical; the step's root at critical is kept rather than a second root above).
 - Yarnell (1934): rise dy = K (K + 5 Fr^2 - 0.6)(alpha + 15 alpha^4) Fr^2 y of the water
   level between downstream and upstream of the piers; y the hydraulic depth (A/T) and Fr the
   Froude number at section 2, alpha the pier area over the flow area at section 2. Piers only
@@ -44,8 +49,9 @@ def yarnell_rise(k, alpha, velocity, depth, g: float):
     return k * (k + 5.0 * fr2 - 0.6) * (a + 15.0 * a ** 4) * fr2 * depth
 
 
-def energy_method(q, tw, up, down, bridge, g: float):
-    """Energy method: (wse_3, choked, wse_3_at_critical) per event (module docstring)."""
+def energy_method(q, tw, up, down, bridge, g: float, free_outfall=None):
+    """Energy method: (wse_3, choked, wse_3_at_critical) per event (module docstring). Where
+    ``free_outfall`` is set (the tailwater is at critical), the WSE at BD is critical."""
     faces = SolverOptions(g=g, contraction=bridge.contraction, expansion=bridge.expansion,
                           tolerance=1e-5)
     inside = SolverOptions(g=g, contraction=0.0, expansion=0.0, tolerance=1e-5)
@@ -56,10 +62,24 @@ def energy_method(q, tw, up, down, bridge, g: float):
     for table, lengths, opts in steps:
         wc = critical_wse(table, q, g=g).wse
         w, _, status = solve_step(table, q, known, lengths, wc, True, opts)
+        if table is not up.net:  # a face step: no obstruction at the level means no step
+            face = down if table is down.net else up
+            same = _unobstructed(face, known.wse)
+            w, status = np.where(same, known.wse, w), np.where(same, OK, status)
+        if table is down.net and free_outfall is not None:
+            w = np.where(free_outfall, wc, w)
+            status = np.where(free_outfall, OK + 1, status)
         if table is not up.full:
             choked |= status != OK
         known = section_state(table, w, q, g)
     return known.wse, choked, status != OK
+
+
+def _unobstructed(face, wse):
+    """True where the opening of ``face`` holds the whole flow area of the face at ``wse``
+    (nothing obstructs the flow below that level, so crossing the face changes nothing)."""
+    full = properties(face.full, wse).area
+    return full - properties(face.net, wse).area <= 1e-9 * np.maximum(full, 1e-12)
 
 
 def _force(table, w, q, g):
@@ -82,8 +102,10 @@ def _solve_force(table, q, residual, g):
     return w, ~(r0 < 0)
 
 
-def momentum_method(q, tw, up, down, bridge, drag_coefficient: float, g: float):
-    """Momentum method: (wse_3, choked, wse_3_at_critical) per event (module docstring)."""
+def momentum_method(q, tw, up, down, bridge, drag_coefficient: float, g: float,
+                    free_outfall=None):
+    """Momentum method: (wse_3, choked, wse_3_at_critical) per event (module docstring). Where
+    ``free_outfall`` is set (the tailwater is at critical), the WSE at BD is critical."""
     i2, d2, _ = _force(down.full, tw, q, g)
     m2 = i2 + d2
 
@@ -91,6 +113,9 @@ def momentum_method(q, tw, up, down, bridge, drag_coefficient: float, g: float):
         return properties(down.full, w).first_moment + _force(down.net, w, q[idx], g)[1] - m2[idx]
 
     w_bd, choked = _solve_force(down.net, q, r_bd, g)
+    if free_outfall is not None and np.any(free_outfall):
+        w_bd = np.where(free_outfall, critical_wse(down.net, q, g=g).wse, w_bd)
+        choked = choked | free_outfall
     i_bd, d_bd, p_bd = _force(down.net, w_bd, q, g)
     length = float(bridge.length)
     s0 = (up.net.thalweg - down.net.thalweg) / length if length > 0 else 0.0
