@@ -1,4 +1,5 @@
-"""hydraulics/ stays pure: numpy/scipy only, no GIS or I/O libraries (DESIGN.md layering rule)."""
+"""hydraulics/ stays pure: numpy/scipy (and numba for the compiled kernel) only, no GIS or I/O
+libraries (the layering rule of DEVELOPERS.md)."""
 import ast
 from pathlib import Path
 
