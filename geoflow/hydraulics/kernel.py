@@ -224,7 +224,8 @@ def friction_slope(q1, k1, q2, k2, rule):
 @njit(**JIT)
 def balance(w, flow, q, known, ln, up, opt):
     """Energy-balance residual at trial WSE w of the unknown section with flow terms ``flow``
-    (area, K, alpha, part K x3): ``step._balance_terms`` for one trial."""
+    (area, K, alpha, part K x3): ``step._balance_terms`` for one trial. ``up`` > 0 when the
+    unknown section is upstream (a float, so numba compiles one version for both ways)."""
     area, conv, alpha, pk0, pk1, pk2 = flow
     head = alpha * q * q / (2.0 * opt[O_G] * area * area)
     share = q / conv if conv > 0 else 0.0
@@ -238,10 +239,10 @@ def balance(w, flow, q, known, ln, up, opt):
     length = (m0 * ln[0] + m1 * ln[1] + m2 * ln[2]) / (m0 + m1 + m2)
     sf = friction_slope(known[K_Q], known[K_CONV], q, conv, int(opt[O_RULE]))
     kh = known[K_HEAD]
-    head_up, head_dn = (head, kh) if up else (kh, head)
+    head_up, head_dn = (head, kh) if up > 0 else (kh, head)
     coef = opt[O_CONTRACTION] if head_dn > head_up else opt[O_EXPANSION]
     loss = length * sf + coef * abs(head_dn - head_up)
-    target = known[K_ENERGY] + loss if up else known[K_ENERGY] - loss
+    target = known[K_ENERGY] + loss if up > 0 else known[K_ENERGY] - loss
     r = w + head - target
     return np.inf if np.isnan(r) else r  # no flow area: far too much energy (step.solve_step)
 
@@ -295,7 +296,7 @@ def step_upstream(reach, i, q, known, ln, wc, opt):
     """Subcritical step: the lowest root above critical WSE ``wc`` on the trial grid (table
     levels above wc merged with wc + scale * ABOVE, levels first at ties)."""
     k = locate(reach, i, wc)
-    r_wc = balance(wc, flow_on(reach, i, k, wc), q, known, ln, True, opt)
+    r_wc = balance(wc, flow_on(reach, i, k, wc), q, known, ln, 1.0, opt)
     if not r_wc < 0:
         return wc, r_wc, CRITICAL
     scale = max(known[K_ENERGY] - wc, 1e-3)
@@ -306,14 +307,14 @@ def step_upstream(reach, i, q, known, ln, wc, opt):
         x_lv = reach.start[s0 + kl] if kl < l1 else np.inf
         x_rel = wc + scale * ABOVE[jr] if jr < ABOVE.size else np.inf
         if x_lv <= x_rel:
-            x, r = x_lv, balance(x_lv, flow_at_start(reach, i, kl), q, known, ln, True, opt)
+            x, r = x_lv, balance(x_lv, flow_at_start(reach, i, kl), q, known, ln, 1.0, opt)
             kl += 1
         else:  # start_kl-1 < x_rel < start_kl: interval kl - 1
             x = x_rel
-            r = balance(x, flow_on(reach, i, near(reach, i, x, kl - 1), x), q, known, ln, True, opt)
+            r = balance(x, flow_on(reach, i, near(reach, i, x, kl - 1), x), q, known, ln, 1.0, opt)
             jr += 1
         if r >= 0:
-            return _finish(reach, i, px, x, pr, r, wc, r_wc, q, known, ln, True, opt)
+            return _finish(reach, i, px, x, pr, r, wc, r_wc, q, known, ln, 1.0, opt)
         px, pr = x, r
     return wc, r_wc, NO_CONVERGENCE
 
@@ -323,7 +324,7 @@ def step_downstream(reach, i, q, known, ln, wc, opt):
     """Supercritical step: the highest root below critical WSE ``wc`` on the trial grid (table
     levels in [lo, wc) merged with thalweg + (wc - thalweg) * BELOW, lo its first point)."""
     k = locate(reach, i, wc)
-    r_wc = balance(wc, flow_on(reach, i, k, wc), q, known, ln, False, opt)
+    r_wc = balance(wc, flow_on(reach, i, k, wc), q, known, ln, -1.0, opt)
     if not r_wc < 0:
         return wc, r_wc, CRITICAL
     thalweg = reach.scalars[i, THALWEG]
@@ -336,13 +337,13 @@ def step_downstream(reach, i, q, known, ln, wc, opt):
         x_rel = thalweg + (wc - thalweg) * BELOW[jr] if jr >= 0 else -np.inf
         if x_rel >= x_lv:
             x = x_rel
-            r = balance(x, flow_on(reach, i, near(reach, i, x, kl), x), q, known, ln, False, opt)
+            r = balance(x, flow_on(reach, i, near(reach, i, x, kl), x), q, known, ln, -1.0, opt)
             jr -= 1
         else:
-            x, r = x_lv, balance(x_lv, flow_at_start(reach, i, kl), q, known, ln, False, opt)
+            x, r = x_lv, balance(x_lv, flow_at_start(reach, i, kl), q, known, ln, -1.0, opt)
             kl -= 1
         if r >= 0:
-            return _finish(reach, i, x, px, r, pr, wc, r_wc, q, known, ln, False, opt)
+            return _finish(reach, i, x, px, r, pr, wc, r_wc, q, known, ln, -1.0, opt)
         px, pr = x, r
     return wc, r_wc, NO_CONVERGENCE
 
@@ -375,10 +376,11 @@ def mixed_overlay(reach, q, wc, lengths, opt, wse, res, status, w_up, has_up, su
     WSE (used when ``has_up``)."""
     known, props = np.empty(7), np.empty(N_PROPS)
     g = opt[O_G]
+    first = min(0, q.shape[1])  # not a literal 0: one compiled version of the callees
     for e in range(q.shape[0]):
         if has_up and w_up[e] < wc[e, 0]:
-            if status[e, 0] != OK or (specific_force_at(reach, 0, w_up[e], q[e, 0], g, props)
-                                      > specific_force_at(reach, 0, wse[e, 0], q[e, 0], g, props)):
+            if status[e, 0] != OK or (specific_force_at(reach, first, w_up[e], q[e, 0], g, props)
+                                      > specific_force_at(reach, first, wse[e, 0], q[e, 0], g, props)):
                 wse[e, 0], res[e, 0], status[e, 0], sup[e, 0] = w_up[e], 0.0, OK, True
     for i in range(1, q.shape[1]):
         for e in range(q.shape[0]):
