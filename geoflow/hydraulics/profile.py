@@ -71,20 +71,8 @@ def _flag_codes(status, boundary, jump, several, not_contained):
             + 12 * jump + 24 * several)
 
 
-def _flags(status, boundary, jump, several, not_contained):
-    codes = _flag_codes(status, boundary, jump, several, not_contained)
-    return tuple(_flag_words(c) for c in codes.tolist())
-
-
-def assemble(p, q, wc, wse, residual, status, boundary, jump, several, g) -> Profile:
-    """Build a Profile from per-section properties ``p`` (one event of ``section_props``),
-    WSE (N,), discharge, critical WSE and solver status."""
-    fields = _fields(p, q, wc, wse, residual, status, g)
-    return Profile(**fields, flags=_flags(status, boundary, jump, several, p["not_contained"]))
-
-
 def _fields(p, q, wc, wse, residual, status, g) -> dict:
-    """Every Profile field but the flags, elementwise on arrays (..., N) (and (..., N, 3))."""
+    """Every Profile field but the flags, elementwise on arrays (E, N) (and (E, N, 3))."""
     a, k = p["area"], p["conveyance"]
     share = p["part_conveyance"] / k[..., None]
     part_q = share * q[..., None]
@@ -108,7 +96,7 @@ def _fields(p, q, wc, wse, residual, status, g) -> dict:
 def assemble_events(p, q, wc, result, boundary, jump, several, g) -> tuple:
     """E Profiles from stacked properties ``p`` (``section_props``, arrays (E, N)), discharge,
     critical WSE, the solver's (wse, residual, status) and the flag arrays, all (E, N): the
-    fields of ``assemble`` computed once for all events, then one Profile per event."""
+    fields computed once for all events, then one Profile per event."""
     wse, residual, status = result
     fields = _fields(p, q, wc, wse, residual, status, g)
     codes = _flag_codes(status, boundary, jump, several, p["not_contained"])
