@@ -46,12 +46,13 @@ def test_sdsu_rectangle_discharges():
         assert normal_wse(t, q, 0.0025)[0] == pytest.approx(y, rel=1e-3)
 
 
-def test_rating_boundary_sets_interpolated_stage():
+def test_rating_boundary_sets_interpolated_stage(engine):
     # The downstream WSE must equal linear interpolation of the rating table (np.interp reference)
     tables = [trapezoid(5, 2, 8, 0.03, zb=0.1 * (3 - i)) for i in range(4)]
     rq, rh = np.array([5.0, 20.0, 60.0]), np.array([1.4, 2.2, 3.5])
     prof = solve_profile(tables, np.full((3, 3), 100.0), np.full(4, 33.0),
-                         downstream=Boundary.rating(discharge=rq, stage=rh))
+                         downstream=Boundary.rating(discharge=rq, stage=rh),
+                         options=SolverOptions(engine=engine))
     assert prof.wse[-1] == pytest.approx(np.interp(33.0, rq, rh), abs=1e-12)
     assert prof.flags[-1] == ("boundary",)
     with pytest.raises(HydraulicsError, match="outside the table"):
@@ -66,15 +67,18 @@ def test_boundary_and_option_errors():
         Boundary.rating([3, 2], [1, 2])
     with pytest.raises(HydraulicsError, match="did you mean 'mixed'"):
         SolverOptions(regime="mixd")
+    with pytest.raises(HydraulicsError, match="did you mean 'compiled'"):
+        SolverOptions(engine="compile")
     t = trapezoid(5, 2, 8, 0.03)
     with pytest.raises(HydraulicsError, match="below the thalweg"):
         solve_profile([t, t], [[10, 10, 10]], [5.0, 5.0], downstream=Boundary.stage(-1.0))
 
 
-def test_stage_below_critical_is_flagged_critical_assumed():
+def test_stage_below_critical_is_flagged_critical_assumed(engine):
     # A subcritical run cannot start below critical WSE: the boundary is raised to critical
     t = trapezoid(5, 2, 8, 0.03)
-    prof = solve_profile([t, t], [[10, 10, 10]], [30.0, 30.0], downstream=Boundary.stage(0.2))
+    prof = solve_profile([t, t], [[10, 10, 10]], [30.0, 30.0], downstream=Boundary.stage(0.2),
+                         options=SolverOptions(engine=engine))
     assert prof.wse[-1] == pytest.approx(prof.critical_wse[-1])
     assert "critical_assumed" in prof.flags[-1]
 
