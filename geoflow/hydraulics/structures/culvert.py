@@ -218,7 +218,9 @@ def culvert_headwater(discharge, tailwater_wse, culvert: Culvert, g: float = G) 
             hw[idx], hwi[idx], hwo[idx], regime[idx] = barrel_headwater(qb[idx], tw[idx],
                                                                         culvert, g)
     hw_wse = culvert.invert_up + hw
-    q_road = road_discharge(hw_wse, tw, culvert)
+    # The split closes the balance to the root tolerance in the headwater; the crest carries the rest
+    # exactly, so barrel + crest = Q (a drowned crest makes Q_road very sensitive to the headwater).
+    q_road = np.where(over, np.maximum(q - qb, 0.0), road_discharge(hw_wse, tw, culvert))
     inlet = hwi >= hwo
     barrel_control = np.where(inlet, "inlet", "outlet")
     ratio = submergence_ratio(hw_wse - (culvert.crest or 0.0), tw - (culvert.crest or 0.0))
