@@ -19,7 +19,10 @@ Method
    ``shapely.make_valid`` (two triangles) and still rasterised. A cell inside several quads
    takes the lowest index i (the most upstream pair). Quads with a NaN WSE at either end
    are left dry.
-3. Depth = WSE - ground where positive and 8-connected (``scipy.ndimage.label``) to the
+3. Ground: the DEM, lowered inside the channel where the sections' channel ground was replaced
+   by surveyed points or a cut shape (:mod:`geoflow.mapping.channel`), so depth is measured to
+   the channel the profile used, not to the flown water surface.
+   Depth = WSE - ground where positive and 8-connected (``scipy.ndimage.label``) to the
    channel seed: the wet cells under the rasterised centreline. Wet pockets behind high
    ground that do not touch the channel are dry.
    Across blocks the labels are joined with a union-find (:mod:`geoflow.mapping.join`).
