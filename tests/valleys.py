@@ -40,6 +40,7 @@ class Valley:
     z_down: float           # bed elevation at the downstream end
     flown_depth: float | None = None   # LiDAR-like: the DEM shows water this deep above the bed as ground
     half_width: float = 100.0
+    cell: float = 1.0                  # DEM cell size, m
 
     @property
     def top_half(self) -> float:
@@ -91,7 +92,7 @@ def make_valley(folder: Path, length=1200.0, bottom_width=12.0, side_slope=2.0, 
     cols, rows = np.meshgrid(np.arange(ncol) + 0.5, np.arange(nrow) + 0.5)
     x, y = x0 - 20 * cell + cols * cell, top_y - rows * cell
     v = Valley(folder / "dem.tif", folder / "centrelines.gpkg", folder / "landcover.gpkg", length,
-               bottom_width, side_slope, bank_height, slope, x0, yc, z_down, flown_depth, half_width)
+               bottom_width, side_slope, bank_height, slope, x0, yc, z_down, flown_depth, half_width, cell)
     off = np.abs(np.mod(y - y0, 2 * half_width) - half_width)
     depth_below_bank = np.clip(bank_height - (off - bottom_width / 2) / side_slope, 0.0, bank_height)
     z = v.bed_at(x) + bank_height - depth_below_bank

@@ -7,8 +7,8 @@ section's conveyance at low and moderate flows is no longer missing.
 
 - The trapezoid is centred on the flown water strip (the run of channel-part ground within
   ``FLAT_TOLERANCE`` of its lowest point), its bottom ``depth`` m below the water surface and its
-  sides rising at z to meet it; ground is only ever lowered (min of DEM and cut) and only between
-  the channel edges. A trapezoid wider than the channel part is cut off at the edges (flag
+  sides rising at z to meet it; ground is only ever lowered (min of DEM and cut), only below the
+  flown water surface and only between the channel edges. A trapezoid wider than the channel part is cut off at the edges (flag
   ``channel_shape_clipped``). z = 0 gives a rectangle (walls 1 mm wide).
 - Depth from the flow on the flight day: with Q_L known, depth h solves Manning's equation
   Q_L = (1/n) A(h) R(h)^(2/3) S^(1/2) for the cut trapezoid full to the flown water level, at the
@@ -126,8 +126,8 @@ def cut_trapezoid(section: Section, bottom_width: float, side_slope: float, dept
     sec = insert_stations(section, corners[(corners > left) & (corners < right)])
     st, dem = sec.station, sec.dem_ground
     cut = water.level - depth + np.maximum(np.abs(st - water.centre) - half, 0.0) / z_eff
-    inside = (st >= left - 1e-9) & (st <= right + 1e-9)
-    ground = np.where(inside, np.minimum(dem, cut), dem)
+    below = (st >= left - 1e-9) & (st <= right + 1e-9) & (cut <= water.level + 1e-9)   # only below the water
+    ground = np.where(below, np.minimum(dem, cut), dem)
     flags = sec.flags
     if water.centre - top_half < left - 1e-6 or water.centre + top_half > right + 1e-6:
         flags = tuple(dict.fromkeys(flags + ("channel_shape_clipped",)))

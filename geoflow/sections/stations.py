@@ -10,7 +10,7 @@ import numpy as np
 
 from ..records import Section
 
-STATION_TOLERANCE = 1e-3     # m: a new station this close to an existing one is not added
+STATION_TOLERANCE = 1e-4     # m: a new station this close to an existing one is not added
 
 
 def insert_stations(section: Section, new_stations) -> Section:
