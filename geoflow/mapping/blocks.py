@@ -33,10 +33,11 @@ class Surface:
     end leaves the quad dry); further rows (e.g. friction slope) are interpolated with the
     same weights. Quad i = section line i + reversed line i+1, repaired with make_valid.
     When some section's channel ground differs from the DEM, ``lowering`` interpolates how far
-    the ground is lowered (one more row after ``values``; :mod:`geoflow.mapping.channel`).
+    the ground is lowered (one more row after ``values``; :mod:`geoflow.mapping.channel`, in the
+    frame of the reach's ``centreline``).
     """
 
-    def __init__(self, sections, values: np.ndarray):
+    def __init__(self, sections, values: np.ndarray, centreline=None):
         self.values = np.atleast_2d(np.asarray(values, dtype=np.float64))
         wse = self.values[0]
         quads, index = [], []
@@ -50,7 +51,7 @@ class Surface:
         self.index = np.array(index, dtype=np.int64)
         self.bounds = shapely.bounds(self.quads) if quads else np.zeros((0, 4))
         self.ends = np.array([_end_points(s.line) for s in sections])   # (N, 4): x0, y0, x1, y1
-        self.lowering = ChannelLowering.from_sections(sections)
+        self.lowering = ChannelLowering.from_sections(sections, centreline)
 
     def touching(self, left: float, bottom: float, right: float, top: float) -> np.ndarray:
         """Indices (into ``quads``) of the quads whose bounds meet the box."""

@@ -280,7 +280,8 @@ def _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity) -> tupl
         raise ConfigError(f"reach {geom.reach_id}: block size {block} is too small; use at least 2 cells "
                           "(256 to 4096 are typical)")
     grid = Grid(dem_window=win, transform=transform, shape=shape_rc, factor=factor, block=size)
-    ctx = _Context(dem=dem, surface=Surface(geom.sections, values), centreline=shapely.force_2d(geom.centreline),
+    centreline = shapely.force_2d(geom.centreline)
+    ctx = _Context(dem=dem, surface=Surface(geom.sections, values, centreline), centreline=centreline,
                    cell=float(max(abs(transform.a), abs(transform.e))), velocity=velocity)
     return ctx, grid
 

@@ -6,11 +6,15 @@ practice reviewed by Merwade, Cook & Coonrod 2008; details from memory):
 1. Each point is given to the reach whose centreline is nearest, if it lies within half that
    reach's section width of it; others are reported by feature number (:func:`assign_points`).
 2. Along the reach the points are grouped into surveyed sections by chainage (a new group starts
-   where consecutive chainages are more than half the section spacing apart). A group is projected
-   onto the DEM section nearest to it in chainage, and each point gets a normalised station
-   n* = (s - s_left) / (s_right - s_left) between that section's channel edges (0 at the left
-   edge, 1 at the right edge). Points with 0 <= n* <= 1 describe the channel; the others are
-   "dry overlap" points for the datum check.
+   where consecutive chainages are more than half the section spacing apart). A group belongs to
+   the DEM section nearest to it in chainage. Each point's signed offset from the centreline (its
+   distance from its foot point on the centreline, positive to the right looking downstream) is
+   laid out from where the centreline crosses that section, giving a station s, and the normalised
+   station n* = (s - s_left) / (s_right - s_left) between the section's channel edges (0 at the
+   left edge, 1 at the right edge): the channel-fitted frame, which in a bend keeps the points in
+   place across the channel (a projection onto a section line some metres away would shift them).
+   Points with 0 <= n* <= 1 describe the channel; the others are "dry overlap" points for the datum
+   check.
 3. Every DEM section between two surveyed sections takes, inside its own channel edges, the ground
    interpolated linearly by chainage between the two surveyed profiles at equal n* (so a thalweg
    that moves across the channel moves with it rather than being smeared). The surveyed range is
@@ -87,8 +91,7 @@ def surveyed_sections(geom: ReachGeometry, points: SurveyPoints, spacing: float)
     warnings, {section id: extra flags}).
     """
     rid, secs = geom.reach_id, geom.sections
-    pts = shapely.points(points.x, points.y)
-    chain = shapely.line_locate_point(geom.centreline, pts)
+    chain, offset = centreline_frame(geom.centreline, points.x, points.y)
     section_chain = np.array([s.chainage for s in secs])
     order = np.argsort(chain, kind="stable")
     groups = np.split(order, np.flatnonzero(np.diff(chain[order]) > GAP_FRACTION * spacing) + 1)
@@ -102,7 +105,7 @@ def surveyed_sections(geom: ReachGeometry, points: SurveyPoints, spacing: float)
                             "of chainage, not across the channel; they were not used (survey cross-sections, or "
                             "reduce [sections] spacing)")
             continue
-        nstar = normalised_station(sec, shapely.line_locate_point(sec.line, pts[g]) * sec.station[-1] / sec.line.length)
+        nstar = normalised_station(sec, centre_station(geom.centreline, sec) + offset[g])
         inside = (nstar >= -1e-9) & (nstar <= 1 + 1e-9)
         ok_dem = ~inside & np.isfinite(points.dem_z[g])
         dry.append(points.dem_z[g][ok_dem] - points.z[g][ok_dem])
@@ -115,6 +118,26 @@ def surveyed_sections(geom: ReachGeometry, points: SurveyPoints, spacing: float)
         out.append(SurveyedSection(chainage=c, section_id=k, nstar=n_u, z=z_u, points=int(inside.sum())))
         _check_above(sec, out[-1], rid, warnings, flags)
     return out, np.concatenate(dry) if dry else np.zeros(0), warnings, flags
+
+
+def centreline_frame(centreline, x, y) -> tuple[np.ndarray, np.ndarray]:
+    """(chainage, signed offset) of points: m along the centreline to the foot point, and m from it,
+    positive to the right looking downstream."""
+    pts = shapely.points(x, y)
+    chain = shapely.line_locate_point(centreline, pts)
+    foot = shapely.get_coordinates(shapely.line_interpolate_point(centreline, chain))
+    ahead = shapely.get_coordinates(shapely.line_interpolate_point(centreline, chain + 0.5))
+    behind = shapely.get_coordinates(shapely.line_interpolate_point(centreline, chain - 0.5))
+    tangent = ahead - behind
+    rel = np.column_stack([x, y]) - foot
+    left = tangent[:, 0] * rel[:, 1] - tangent[:, 1] * rel[:, 0] > 0
+    return chain, np.where(left, -1.0, 1.0) * np.hypot(rel[:, 0], rel[:, 1])
+
+
+def centre_station(centreline, section: Section) -> float:
+    """Station (m from the left end) where the centreline crosses the section."""
+    point = shapely.line_interpolate_point(centreline, section.chainage)
+    return float(shapely.line_locate_point(section.line, point) * section.station[-1] / section.line.length)
 
 
 def normalised_station(section: Section, station) -> np.ndarray:
