@@ -588,6 +588,8 @@ Regenerate (deterministic; numpy `default_rng(seed)`):
 | `dem.tif` | float32 GeoTIFF, {p.cell_m:g} m cells, {int(p.width_m / p.cell_m)} x {int(p.height_m / p.cell_m)} cells, north-up, nodata {p.nodata:g}, 256 px tiles, DEFLATE + floating-point predictor, elevations rounded to 1 cm (range {s['zmin']:.2f} to {s['zmax']:.2f} m) |
 | `centrelines.gpkg` | layer `centrelines`: two LineStrings drawn upstream -> downstream, vertices every ~{p.vertex_m:g} m; fields `reach_id`, `name` |
 | `landcover.gpkg` | layer `landcover`: polygons covering the whole DEM extent without gaps or overlaps; field `cover` |
+| `dem_lidar.tif` | the first meander of the main river as a LiDAR flight records it (below); same format, {s['lidar']['shape'][1]} x {s['lidar']['shape'][0]} cells |
+| `lidar.gpkg` | layers `centreline` (that stretch of `main`, fields `reach_id`, `name`) and `survey` ({s['lidar']['survey_points']} surveyed ground points, field `z_m`) |
 
 CRS: EPSG:{p.epsg} (WGS 84 / UTM zone 30N), metres; vertical unit metres (invented datum).
 Extent: E {e0:.0f}-{e0 + p.width_m:.0f}, N {n0:.0f}-{n0 + p.height_m:.0f}
@@ -670,7 +672,7 @@ def landcover_rows(s: dict) -> str:
     return rows + """
 Manning's n per class is set in `configs/demo.toml` (Chow 1959, Table 5-6, "normal" column, with
 the minimum and maximum as the low and high values for sensitivity runs).
-
+""" + readme_lidar(s) + """
 Results computed on this scenario are screening-level 1D steady estimates for a made-up valley.
 """
 
@@ -761,6 +763,26 @@ def write_lidar(out: Path, p: Params, lay: Layout, z: np.ndarray) -> dict:
         out / "lidar.gpkg", layer="survey", driver="GPKG")
     return dict(flown_depth=flown_depth(p, lay), stretch=float(chainage(lidar_stretch(lay))[-1]),
                 survey_points=len(ground), raised_cells=raised, shape=zl.shape)
+
+
+def readme_lidar(s: dict) -> str:
+    """README section on the LiDAR-like stretch and its survey."""
+    li = s["lidar"]
+    x0, x1, s0, n0 = LIDAR_BOX
+    return f"""
+## The channel the DEM cannot see (`dem_lidar.tif`, `lidar.gpkg`, configs/demo_lidar.toml)
+A LiDAR DEM shows the water surface of the day it was flown, not the river bed. `dem_lidar.tif` is
+`dem.tif` cut to the first meander of the {RIVER_NAMES[0]} (local x {x0:g}-{x1:g} m, {-s0:g} m south to
+{n0:g} m north of the valley axis) with the channel filled up to the water surface of an invented
+flight day: {FLOWN_Q:g} m3/s, {li['flown_depth']:.3f} m deep in the design trapezoid (Manning normal
+depth, n = {Params().n_channel:g}), so {li['raised_cells']} channel cells hold a flat water surface instead of the bed.
+Layer `centreline` of `lidar.gpkg` is that stretch of `main` ({li['stretch']:.1f} m, one meander
+wavelength). Layer `survey` holds {len(SURVEY_CHAINAGES)} surveyed cross-sections of the true channel at
+chainages {", ".join(f"{c:g}" for c in SURVEY_CHAINAGES)} m of the stretch: points every
+{SURVEY_STEP:g} m from {SURVEY_HALF_WIDTH:g} m left to {SURVEY_HALF_WIDTH:g} m right of the centreline,
+`z_m` = the true ground (`dem.tif`, bilinear), rounded to 1 cm. The outer points lie on the banks beyond
+the channel, where geoflow checks the survey's datum against the DEM.
+"""
 
 
 def generate(out: Path, seed: int = DEFAULT_SEED, params: Params | None = None) -> dict:
