@@ -46,7 +46,7 @@ def fit_channel(geom: ReachGeometry, shape: ChannelShape | None, survey: SurveyP
         summary["survey"] = {"points": len(survey), "dem_minus_survey": datum,
                              "sections": [{"chainage_m": round(s.chainage, 2), "section_id": s.section_id,
                                            "channel_points": s.points} for s in surveyed]}
-    if shape is not None:
+    if shape is not None and any(s.bed_source == "dem" for s in sections):     # not when the survey covers all
         depth, info = shape_depth(rid, sections, shape, n_channel, where)
         sections = [cut_trapezoid(s, shape.bottom_width, shape.side_slope, depth) if s.bed_source == "dem" else s
                     for s in sections]
