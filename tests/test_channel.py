@@ -261,3 +261,24 @@ def test_unknown_channel_key_gets_a_suggestion(tmp_path):
     from geoflow.errors import ConfigError
     with pytest.raises(ConfigError, match=r"\[channel\] shape botom_width: unknown key; did you mean 'bottom_width'"):
         channel_config(tmp_path, "shape = { botom_width = 8.0, side_slope = 2.0, depth = 1.0 }\n")
+
+
+def test_survey_first_shape_elsewhere():
+    """Surveyed sections take the survey, the sections beyond the surveyed stretch the shape; the survey
+    points lie on the true 6 m, z = 2 trapezoid 1.5 m below the flat water, so both beds agree (analytic)."""
+    chain = np.array([0.0, 100.0, 200.0, 300.0, 400.0])
+    geom = straight_reach([lidar_section().elevation] * 5, chain)
+    ys = np.arange(-9.5, 9.51, 0.5)                                        # y = 50 - station
+    def true_bed(y):
+        return np.minimum(13.0, 8.5 + np.maximum(np.abs(y) - 3.0, 0.0) / 2.0)
+    x = np.repeat([100.0, 300.0], ys.size)
+    y = np.tile(ys, 2)
+    pts = SurveyPoints(x, y, true_bed(y), np.full(x.size, np.nan), np.arange(x.size))
+    out = fit_channel(geom, ChannelShape(bottom_width=6.0, side_slope=2.0, depth=1.5), pts, 100.0, [0.03] * 5)
+    assert [s.bed_source for s in out.sections] == ["shape", "survey", "survey", "survey", "shape"]
+    assert out.channel["bed_source"] == {"shape": 2, "survey": 3}
+    for s in out.sections:
+        left, right = s.channel_edges
+        inside = (s.station >= left + 4.0) & (s.station <= right - 4.0)   # away from the 13 m bank tops
+        np.testing.assert_allclose(s.elevation[inside], np.minimum(true_bed(50.0 - s.station[inside]), 10.0),
+                                   atol=1e-9)
