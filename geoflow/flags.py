@@ -54,6 +54,12 @@ FLAGS: dict[str, Flag] = {f.word: f for f in (
          "check the DEM there (water bodies, voids)"),
     Flag("no_channel_cover", "input", "no land-cover polygon of the channel class crosses the section; the channel "
          "edges were taken from breaks in the ground slope", "add the channel to the land-cover layer there"),
+    Flag("survey_above_dem", "input", "the lowest surveyed ground of this section's channel lies above the DEM's "
+         "lowest channel ground (the water surface the DEM shows), which a survey of the bed cannot do",
+         "check the survey's vertical datum (see the datum check in the warnings) and where it was placed"),
+    Flag("channel_shape_clipped", "tool", "the channel shape of [channel] shape is wider than the channel part "
+         "of this section at the flown water surface and was cut off at the channel edges",
+         "check the shape's bottom width and side slope, and the channel land-cover polygon here"),
     Flag("landcover_gap", "input", "part of the section lies in no land-cover polygon; [roughness] default_n was "
          "used there", "fill the gap in the land-cover layer"),
 )}

@@ -19,9 +19,11 @@ import shapely
 from shapely.geometry import LineString
 
 from .errors import InputDataError
+from .records import SurveyPoints
 
 _LINE_TYPES = ("LineString", "MultiLineString")
 _POLYGON_TYPES = ("Polygon", "MultiPolygon")
+SURVEY_FIELD = "z_m"
 
 
 @dataclass(frozen=True, eq=False)
@@ -145,6 +147,28 @@ def read_landcover(path, crs, class_field: str, layer: str | None = None, bbox=N
         geoms[invalid] = shapely.make_valid(geoms[invalid])
     classes = np.array([_as_text(v) for v in values], dtype=str)
     return LandCover(geometries=geoms, classes=classes, path=path, layer=layer, class_field=class_field)
+
+
+def read_survey_points(path, crs, layer: str | None = None) -> SurveyPoints:
+    """Surveyed ground points (field ``z_m``, metres in the DEM's vertical datum), reprojected to ``crs``.
+
+    ``dem_z`` is left NaN (the caller samples the DEM); ``fid`` is the feature's position in the
+    layer. Missing or non-numeric ``z_m`` values are an error naming the features.
+    """
+    path = Path(path)
+    gdf, where = _read_layer(path, crs, layer, [SURVEY_FIELD], ("Point",), "point")
+    try:
+        z = np.asarray(gdf[SURVEY_FIELD].to_numpy(), dtype=np.float64)
+    except (TypeError, ValueError):
+        raise InputDataError(f"{where}: field {SURVEY_FIELD!r} holds values that are not numbers; give the surveyed "
+                             "ground elevation in metres (the DEM's vertical datum)") from None
+    bad = np.flatnonzero(~np.isfinite(z))
+    if bad.size:
+        raise InputDataError(f"{where}: field {SURVEY_FIELD!r} is empty for {bad.size} point(s) (first: feature "
+                             f"{int(bad[0])}); give every point its surveyed elevation in metres")
+    xy = shapely.get_coordinates(np.asarray(gdf.geometry.values, dtype=object))
+    return SurveyPoints(x=xy[:, 0].copy(), y=xy[:, 1].copy(), z=z, dem_z=np.full(z.size, np.nan),
+                        fid=np.arange(z.size), source=where)
 
 
 def _read_layer(path: Path, crs, layer, fields, allowed_types, kind, bbox=None, check: bool = True):

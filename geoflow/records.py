@@ -13,6 +13,8 @@ from shapely.geometry import LineString
 
 # Codes of the three conveyance parts of a section, per station segment.
 LEFT_FLOODPLAIN, CHANNEL, RIGHT_FLOODPLAIN = 0, 1, 2
+# Where the ground of a section's channel comes from (``Section.bed_source``).
+BED_SOURCES = ("dem", "survey", "shape")
 
 
 @dataclass(frozen=True, eq=False)
@@ -21,6 +23,11 @@ class Section:
 
     Arrays: ``station`` and ``elevation`` have m points; ``n``, ``landcover`` and
     ``part`` describe the m-1 segments between consecutive points.
+
+    ``elevation`` is the ground the computation uses. Where the channel below the DEM surface
+    was replaced (surveyed points or a cut shape, :mod:`geoflow.sections.channel`),
+    ``dem_elevation`` holds the DEM ground at the same stations and ``bed_source`` says what
+    replaced it; otherwise ``dem_elevation`` is None and ``bed_source`` is ``"dem"``.
     """
 
     reach_id: str
@@ -33,6 +40,8 @@ class Section:
     landcover: np.ndarray = field(default=None)  # (m-1,) land-cover class name per segment
     part: np.ndarray = field(default=None)       # (m-1,) int8: LEFT_FLOODPLAIN / CHANNEL / RIGHT_FLOODPLAIN
     flags: tuple[str, ...] = ()
+    dem_elevation: np.ndarray | None = None       # (m,) DEM ground where the channel was replaced, else None
+    bed_source: str = "dem"                      # one of BED_SOURCES
 
     @property
     def channel_edges(self) -> tuple[float, float]:
@@ -47,6 +56,11 @@ class Section:
         """Lowest ground elevation in the section (thalweg), m."""
         return float(np.min(self.elevation))
 
+    @property
+    def dem_ground(self) -> np.ndarray:
+        """DEM ground (m) at the stations: ``dem_elevation`` where the channel was replaced, else ``elevation``."""
+        return self.elevation if self.dem_elevation is None else self.dem_elevation
+
 
 @dataclass(frozen=True, eq=False)
 class ReachGeometry:
@@ -57,3 +71,24 @@ class ReachGeometry:
     sections: tuple[Section, ...]
     lengths: np.ndarray        # (N-1, 3) m from section i to i+1: left floodplain, channel, right floodplain
     warnings: tuple[str, ...] = ()
+    channel: dict | None = None   # what replaced the DEM's channel (plain values; see sections.channel)
+
+
+@dataclass(frozen=True, eq=False)
+class SurveyPoints:
+    """Surveyed ground points in the DEM CRS: x, y (m), z (m, the DEM's vertical datum), the DEM
+    ground under each point (m, NaN off the DEM) and the feature number in the file (for messages)."""
+
+    x: np.ndarray
+    y: np.ndarray
+    z: np.ndarray
+    dem_z: np.ndarray
+    fid: np.ndarray
+    source: str = ""           # file (layer) they came from, for messages
+
+    def subset(self, idx) -> "SurveyPoints":
+        """The points at ``idx`` (indices or a mask)."""
+        return SurveyPoints(self.x[idx], self.y[idx], self.z[idx], self.dem_z[idx], self.fid[idx], self.source)
+
+    def __len__(self) -> int:
+        return int(self.x.size)

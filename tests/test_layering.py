@@ -36,7 +36,7 @@ PURE = {
     "geoflow.records": {"numpy", "shapely"},
     "geoflow.config": {"numpy"},
     "geoflow.hydraulics": {"numpy", "scipy", "numba"},
-    "geoflow.sections": {"numpy", "shapely"},
+    "geoflow.sections": {"numpy", "shapely", "scipy"},
     "geoflow.roughness": {"numpy", "shapely"},
 }
 STDLIB = set(sys.stdlib_module_names)

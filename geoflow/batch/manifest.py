@@ -101,7 +101,7 @@ class Manifest:
 
     def record_reach(self, reach_id: str, info: dict) -> None:
         self.data["reaches"][reach_id] = {k: info.get(k) for k in ("status", "error", "sections", "warnings",
-                                                                   "flags", "files", "timings_s")
+                                                                   "channel", "flags", "files", "timings_s")
                                           if info.get(k) is not None or k in ("status", "error")}
         for ev, unit in (info.get("events") or {}).items():
             self.data["units"][unit_key(reach_id, ev)] = unit

@@ -37,8 +37,24 @@ def build_geometry(cfg: Config, inputs: Inputs, reach_id: str, line) -> ReachGeo
                                      others=others, rise=sc.rise)
     geom = roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
                                       default_n=cfg.roughness.default_n)
+    geom = fit_channel(cfg, inputs, geom)
     notes = tuple(inputs.warnings.get(reach_id, ()))
     return dataclasses.replace(geom, warnings=notes + tuple(geom.warnings)) if notes else geom
+
+
+def fit_channel(cfg: Config, inputs: Inputs, geom: ReachGeometry) -> ReachGeometry:
+    """The channel below the DEM surface from [channel] survey points and/or shape (after the edges are known)."""
+    if cfg.channel is None:
+        return geom
+    rid = geom.reach_id
+    own = cfg.channel.for_reach(rid)
+    survey = inputs.survey.get(rid)
+    if own.shape is None and survey is None:
+        return geom
+    where = f"[channel.reaches.{rid}] shape" if rid in cfg.channel.reaches and \
+        cfg.channel.reaches[rid].shape is not None else "[channel] shape"
+    n_channel = [roughness.composite_n_by_part(s)[1] for s in geom.sections]
+    return sections.fit_channel(geom, own.shape, survey, cfg.sections.for_reach(rid).spacing, n_channel, where)
 
 
 def discharge_along(event: Event, reach_id: str, chainage: np.ndarray) -> np.ndarray:

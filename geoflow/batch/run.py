@@ -30,6 +30,7 @@ from ..config.crosscheck import junction_order
 from ..constants import CAUTION
 from ..errors import GeoflowError, OutputError, is_disk_full, write_error
 from ..naming import safe_name
+from ..sections.channel import describe_channel
 from . import assemble, layout, manifest
 from .engines import engine
 from .inputs import Inputs
@@ -248,5 +249,7 @@ def _record(p: _Plan, rid: str, info: dict) -> None:
         raise
     level = logging.INFO if info["status"] == "complete" else logging.ERROR
     log.log(level, "reach %s: %s%s", rid, info["status"], f" - {info['error']}" if info.get("error") else "")
+    if info.get("channel"):
+        log.info("%s", describe_channel(rid, info["channel"]))
     if "traceback" in info:
         log.error("%s", info["traceback"])

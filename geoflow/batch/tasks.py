@@ -100,6 +100,8 @@ def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float)
     rid = spec.reach_id
     geom = GEOMETRY_CACHE.get((spec.identity, rid)) or reach.build_geometry(cfg, inputs, rid, dict(inputs.reaches)[rid])
     info["sections"], info["warnings"] = len(geom.sections), list(geom.warnings)
+    if geom.channel:
+        info["channel"] = geom.channel
     info["files"] = [relative_name(cfg.run.output_dir, _write_sections_part(cfg, inputs, geom))]
     t1 = time.perf_counter()
     todo = [e for e in cfg.events if e.name in spec.events]

@@ -31,6 +31,7 @@ from ..config.crosscheck import boundary_level_problems, discharge_at_ends, rais
 from ..errors import GeoflowError, GeometryError, InputDataError
 from ..naming import safe_name
 from ..records import ReachGeometry
+from ..sections.channel import describe_channel
 from . import reach
 from .inputs import Inputs, open_inputs
 from .layout import check_inputs_not_outputs
@@ -57,6 +58,8 @@ class CheckResult:
             flagged = sum(1 for s in g.sections if s.flags)
             lines.append(f"  reach {rid}: {g.sections[-1].chainage:.0f} m, {len(g.sections)} sections, "
                          f"{flagged} flagged")
+            if g.channel:
+                lines.append(f"    {describe_channel(rid, g.channel)}")
             lines.extend(f"    warning: {w}" for w in g.warnings)
         lines.extend(f"  reach {rid}: PROBLEM: {msg}" for rid, msg in self.problems.items())
         return lines

@@ -20,6 +20,9 @@ from .model import (  # noqa: F401
     VERTICAL_UNITS,
     BoundaryConfig,
     BoundarySpec,
+    ChannelConfig,
+    ChannelReach,
+    ChannelShape,
     Config,
     Event,
     FlowChange,
@@ -44,13 +47,14 @@ from .read import (
     _read_terrain,
     _Reader,
 )
+from .read_channel import _read_channel
 
 __all__ = ["load_config", "Config", "RunConfig", "TerrainConfig", "ReachesConfig", "SectionsConfig",
            "RoughnessClass", "RoughnessConfig", "FlowChange", "Event", "BoundarySpec", "BoundaryConfig",
-           "HydraulicsConfig", "MappingConfig", "REGIMES", "BOUNDARY_TYPES", "FRICTION_SLOPE_METHODS",
+           "HydraulicsConfig", "MappingConfig", "ChannelConfig", "ChannelReach", "ChannelShape", "REGIMES", "BOUNDARY_TYPES", "FRICTION_SLOPE_METHODS",
            "MAPPING_OUTPUTS", "VERTICAL_UNITS"]
 
-TOP_LEVEL = ("run", "terrain", "reaches", "sections", "roughness", "events", "boundary", "hydraulics", "mapping")
+TOP_LEVEL = ("run", "terrain", "reaches", "sections", "roughness", "events", "boundary", "hydraulics", "mapping", "channel")
 
 
 def load_config(path: str | Path) -> Config:
@@ -74,6 +78,7 @@ def load_config(path: str | Path) -> Config:
         run=_read_run(r, doc), terrain=_read_terrain(r, doc), reaches=_read_reaches(r, doc),
         sections=_read_sections(r, doc), roughness=_read_roughness(r, doc), events=_read_events(r, doc),
         boundary=_read_boundary(r, doc), hydraulics=_read_hydraulics(r, doc), mapping=_read_mapping(r, doc),
+        channel=_read_channel(r, doc),
     )
     if r.problems:
         raise ConfigError(_summarise(path, r.problems), problems=[f"{path}: {p}" for p in r.problems])

@@ -57,7 +57,9 @@ def _reach_name_problems(cfg: Config, reach_ids: list[str]) -> list[str]:
             out.append(f"[reaches] id_field: reach id {rid[:40]!r}... in {cfg.reaches.centrelines.name} is "
                        f"{len(rid)} characters long; reach ids become file names, keep them to {MAX_NAME_LENGTH}")
     out += _event_reach_problems(cfg, known, listing)
-    for table, names in (("sections.reaches", cfg.sections.reaches), ("boundary.reaches", cfg.boundary.reaches)):
+    channel = cfg.channel.reaches if cfg.channel is not None else {}
+    for table, names in (("sections.reaches", cfg.sections.reaches), ("boundary.reaches", cfg.boundary.reaches),
+                         ("channel.reaches", channel)):
         for rid in names:
             if rid not in known:
                 out.append(f"[{table}.{rid}]: names a reach that is not in {cfg.reaches.centrelines.name} {listing}")

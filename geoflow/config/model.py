@@ -140,6 +140,47 @@ class MappingConfig:
 
 
 @dataclass(frozen=True)
+class ChannelShape:
+    """A channel cut below the DEM's channel ground (the flown water surface), ``[channel] shape``.
+
+    Trapezoid of ``bottom_width`` (m) and ``side_slope`` (H:V), ``depth`` m below the lowest DEM
+    ground of the channel part, or the depth at which it carries ``flow_at_survey`` (m3/s) at the
+    flown water level (Manning normal depth at ``slope``, default: fitted to the DEM along the reach).
+    """
+
+    bottom_width: float
+    side_slope: float
+    depth: float | None = None
+    flow_at_survey: float | None = None
+    slope: float | None = None
+
+
+@dataclass(frozen=True)
+class ChannelReach:
+    """Per-reach channel settings (``[channel.reaches.<id>]``)."""
+
+    shape: ChannelShape | None = None
+    use_survey: bool = True
+
+
+@dataclass(frozen=True)
+class ChannelConfig:
+    """The channel below the DEM surface: surveyed ground points and/or a shape to cut (``[channel]``)."""
+
+    survey: Path | None = None
+    survey_layer: str | None = None
+    shape: ChannelShape | None = None
+    reaches: Mapping[str, ChannelReach] = field(default_factory=lambda: MappingProxyType({}))
+
+    def for_reach(self, reach_id: str) -> ChannelReach:
+        """Shape and survey use of a reach: its ``[channel.reaches.<id>]`` table over the defaults."""
+        own = self.reaches.get(reach_id)
+        if own is None:
+            return ChannelReach(shape=self.shape, use_survey=True)
+        return ChannelReach(shape=own.shape or self.shape, use_survey=own.use_survey)
+
+
+@dataclass(frozen=True)
 class Config:
     path: Path
     sha256: str
@@ -152,6 +193,7 @@ class Config:
     boundary: BoundaryConfig
     hydraulics: HydraulicsConfig = HydraulicsConfig()
     mapping: MappingConfig = MappingConfig()
+    channel: ChannelConfig | None = None
 
     def input_files(self) -> dict[str, Path]:
         """Every input file this config names, by its TOML key (the config file itself included).
@@ -162,5 +204,6 @@ class Config:
         """
         files = {"config": self.path, "[terrain] dem": self.terrain.dem,
                  "[reaches] centrelines": self.reaches.centrelines, "[roughness] landcover": self.roughness.landcover,
-                 "[roughness] table": self.roughness.table, "[sections] lines": self.sections.lines}
+                 "[roughness] table": self.roughness.table, "[sections] lines": self.sections.lines,
+                 "[channel] survey": self.channel.survey if self.channel is not None else None}
         return {k: Path(p) for k, p in files.items() if p is not None}

@@ -19,7 +19,10 @@ Method
    ``shapely.make_valid`` (two triangles) and still rasterised. A cell inside several quads
    takes the lowest index i (the most upstream pair). Quads with a NaN WSE at either end
    are left dry.
-3. Depth = WSE - ground where positive and 8-connected (``scipy.ndimage.label``) to the
+3. Ground: the DEM, lowered inside the channel where the sections' channel ground was replaced
+   by surveyed points or a cut shape (:mod:`geoflow.mapping.channel`), so depth is measured to
+   the channel the profile used, not to the flown water surface.
+   Depth = WSE - ground where positive and 8-connected (``scipy.ndimage.label``) to the
    channel seed: the wet cells under the rasterised centreline. Wet pockets behind high
    ground that do not touch the channel are dry.
    Across blocks the labels are joined with a union-find (:mod:`geoflow.mapping.join`).
@@ -277,7 +280,8 @@ def _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity) -> tupl
         raise ConfigError(f"reach {geom.reach_id}: block size {block} is too small; use at least 2 cells "
                           "(256 to 4096 are typical)")
     grid = Grid(dem_window=win, transform=transform, shape=shape_rc, factor=factor, block=size)
-    ctx = _Context(dem=dem, surface=Surface(geom.sections, values), centreline=shapely.force_2d(geom.centreline),
+    centreline = shapely.force_2d(geom.centreline)
+    ctx = _Context(dem=dem, surface=Surface(geom.sections, values, centreline), centreline=centreline,
                    cell=float(max(abs(transform.a), abs(transform.e))), velocity=velocity)
     return ctx, grid
 

@@ -94,6 +94,7 @@ def section_rows(geom, composite_n) -> list[dict]:
         n_left, n_ch, n_right = composite_n(s)
         rows.append({"reach_id": geom.reach_id, "section_id": s.section_id, "chainage_m": s.chainage,
                      "channel_edge_left_m": lb, "channel_edge_right_m": rb, "bed_m": s.bed_elevation,
+                     "bed_source": s.bed_source, "dem_bed_m": float(np.min(s.dem_ground)),
                      "n_floodplain_left": n_left, "n_channel": n_ch, "n_floodplain_right": n_right,
                      "flags": ";".join(s.flags), "geometry": s.line})
     return rows

@@ -9,14 +9,17 @@ Pure geometry on shapely/numpy: the DEM is reached only through ``dem.sample(x, 
 - ``orient``: the centreline's drawn direction checked against the DEM;
 - ``banks``: channel edges from breaks in the ground slope;
 - ``lengths``: channel and floodplain reach lengths between neighbouring sections;
-- ``common``: sampling, gap filling and checks shared by the above.
+- ``common``: sampling, gap filling and checks shared by the above;
+- ``channel``: the channel below the DEM surface, from surveyed points (``survey``) and/or a
+  shape cut below the flown water surface (``burn``); ``stations`` adds stations to a section.
 """
 from .banks import detect_banks
+from .channel import fit_channel
 from .common import fill_small_gaps
 from .cut import cut_sections, grid_stations
 from .lengths import floodplain_lengths
 from .orient import orient_centreline
 from .userlines import sections_from_lines
 
-__all__ = ["cut_sections", "detect_banks", "fill_small_gaps", "grid_stations", "orient_centreline",
+__all__ = ["cut_sections", "detect_banks", "fit_channel", "fill_small_gaps", "grid_stations", "orient_centreline",
            "floodplain_lengths", "sections_from_lines"]
