@@ -180,8 +180,8 @@ def step_rows(label, case, truth, repeat=3):
     rows = []
     for engine, name in ENGINE_ROWS:
         opts = dataclasses.replace(NO_EDDY, engine=engine)
-        t_step, profs = timed(lambda: solve_events(tables, lengths, q, Boundary.stage(w_end),
-                                                   options=opts), repeat if engine == "compiled" else 1)
+        t_step, profs = timed(lambda opts=opts: solve_events(tables, lengths, q, Boundary.stage(w_end),
+                                                             options=opts), repeat if engine == "compiled" else 1)
         err = max(np.max(np.abs(p.wse - truth[k])) for k, p in enumerate(profs))
         rows.append((f"{label}: {name}", t_step, err))
     return rows
@@ -190,11 +190,11 @@ def step_rows(label, case, truth, repeat=3):
 def reference_row(label, ode, truth, err_step, repeat=2):
     """The loosest RK45 rtol whose max error is not larger than ``err_step``, timed."""
     for rtol in 10.0 ** -np.arange(2, 11):
-        t_ode, result = timed(lambda: ode("RK45", rtol), 1)
+        t_ode, result = timed(lambda rtol=rtol: ode("RK45", rtol), 1)
         err = np.max(np.abs(result - truth))
         if err <= err_step:
             if repeat > 1:
-                t_ode = min(t_ode, timed(lambda: ode("RK45", rtol), repeat - 1)[0])
+                t_ode = min(t_ode, timed(lambda rtol=rtol: ode("RK45", rtol), repeat - 1)[0])
             return (f"{label} rtol={rtol:.0e}", t_ode, err)
     raise RuntimeError(f"{label}: no RK45 tolerance reached the standard-step accuracy")
 

@@ -8,10 +8,24 @@ from __future__ import annotations
 
 import numpy as np
 
-from geoflow.hydraulics.kernel import (N_PROPS, P_ALPHA, P_AREA, P_BETA, P_CONV, P_MOMENT,
-                                      P_OUT, P_PART_A, P_PART_K, P_PERIM, P_TOP, RULES,
-                                      critical_reach, march_piece, mixed_overlay,
-                                      properties_reach)
+from geoflow.hydraulics.kernel import (
+    N_PROPS,
+    P_ALPHA,
+    P_AREA,
+    P_BETA,
+    P_CONV,
+    P_MOMENT,
+    P_OUT,
+    P_PART_A,
+    P_PART_K,
+    P_PERIM,
+    P_TOP,
+    RULES,
+    critical_reach,
+    march_piece,
+    mixed_overlay,
+    properties_reach,
+)
 from geoflow.hydraulics.packed import pack_reach
 
 

@@ -35,6 +35,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from geoflow.constants import G
 from geoflow.errors import GeometryError
 from geoflow.hydraulics.lookup import LevelTable, build_level_table, evaluate, flow_terms
 
@@ -82,15 +83,6 @@ class SectionTable:
     levels: np.ndarray           # (L,) ascending trial water-surface elevations
     lookup: LevelTable | None    # None with a depth law for n (exact clipping is used then)
     flow_at_levels: tuple = ()   # (area, conveyance, alpha (L,), part conveyance (L, 3))
-
-    @property
-    def at_levels(self) -> SectionProperties:
-        """All properties at ``levels`` (computed on first use)."""
-        cache = self.__dict__.get("_at_levels")
-        if cache is None:
-            cache = fast_properties(self, self.levels)
-            object.__setattr__(self, "_at_levels", cache)
-        return cache
 
     @property
     def thalweg(self) -> float:
@@ -287,7 +279,7 @@ def _assemble(table, w, sub_a, sub_p, sub_ns, t_t, moment):
         sub_k[~((sub_a > 0) & (sub_p > 0))] = 0.0
         a_t, k_t = sub_a.sum(axis=1), sub_k.sum(axis=1)
         # alpha = sum u_i v_i^2, beta = sum u_i v_i with u_i = K_i/K_t and v_i = V_i/V_mean =
-        # (K_i/A_i)/(K_t/A_t): the REFERENCES 3.1 formulas in scale-free form (no underflow)
+        # (K_i/A_i)/(K_t/A_t): the Chow (1959, ch. 2) formulas in scale-free form (no underflow)
         vel = np.where(sub_k > 0, sub_k / np.where(sub_k > 0, sub_a, 1.0), 0.0)
         u = sub_k / k_t[:, None]
         v = vel * (a_t / k_t)[:, None]
@@ -305,7 +297,7 @@ def _assemble(table, w, sub_a, sub_p, sub_ns, t_t, moment):
         not_contained=(w > table.elevation[0]) | (w > table.elevation[-1]))
 
 
-def specific_force(props: SectionProperties, discharge, g: float = 9.80665):
+def specific_force(props, discharge, g: float = G):
     """Specific force (momentum function) M = beta Q^2 / (g A) + A ybar, m3
     (Chow 1959, ch. 3, from memory); inf where the section is dry."""
     q = np.asarray(discharge, dtype=float)

@@ -22,10 +22,12 @@ The algorithms are those of the numpy reference (``lookup``, ``critical``, ``ste
 """
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 from numba import njit
 
-JIT = dict(cache=True, error_model="numpy", nogil=True)
+JIT: dict[str, Any] = dict(cache=True, error_model="numpy", nogil=True)
 THALWEG, TOP, WIDTH, Z_LEFT, Z_RIGHT = 0, 1, 2, 3, 4     # columns of Reach.scalars
 OK, CRITICAL, NO_CONVERGENCE = 0, 1, 2                   # as step
 ABOVE = np.array([1e-4, 1e-3, 1e-2, 0.05, 0.1, 0.2, 0.35, 0.5, 0.75, 1.0, 1.5, 2.0, 4.0, 10.0])

@@ -56,9 +56,9 @@ def _flag_words(code: int) -> tuple:
         boundary, status = code % 2, (code // 2) % 3
         f = ["boundary"] if boundary else []
         if status == NO_CONVERGENCE:
-            f += ["no_convergence", "critical_assumed"]
+            f += ["no_convergence", "critical_fallback"]
         elif status == CRITICAL:
-            f.append("critical_assumed")
+            f.append("critical_fallback")
         for bit, word in ((6, "not_contained"), (12, "jump_upstream"), (24, "several_critical_depths")):
             if (code // bit) % 2:
                 f.append(word)

@@ -12,10 +12,10 @@ Regimes (``SolverOptions.regime``):
 
 Flags (per section, plain words):
 - "boundary": the WSE was set by the boundary condition;
-- "critical_assumed": no solution in the running regime (or the boundary was on the wrong side
+- "critical_fallback": no solution in the running regime (or the boundary was on the wrong side
   of critical); the WSE is critical WSE;
 - "no_convergence": the energy balance was not met within ``tolerance``; the WSE falls back to
-  critical WSE (and "critical_assumed" is set too);
+  critical WSE (and "critical_fallback" is set too);
 - "not_contained": the WSE is above an end of the section; vertical walls were added;
 - "jump_upstream": a hydraulic jump lies between this section and the next one upstream;
 - "several_critical_depths": specific energy has more than one local minimum here (the lowest
@@ -43,6 +43,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from geoflow.constants import G
 from geoflow.errors import HydraulicsError
 from geoflow.hydraulics.boundaries import Boundary, normal_wse  # noqa: F401  (re-exported)
 from geoflow.hydraulics.engine_numpy import NumpyEngine
@@ -64,11 +65,11 @@ def _choice(name, value, allowed):
 @dataclass(frozen=True)
 class SolverOptions:
     """Solver settings. contraction/expansion defaults are the gradual-transition values
-    0.1/0.3 (USACE EM 1110-2-1416, 1993, from memory; REFERENCES 3.3). ``tolerance`` is the
+    0.1/0.3 (USACE EM 1110-2-1416, 1993, from memory). ``tolerance`` is the
     largest accepted energy-balance residual, m. ``engine``: "compiled" (numba kernels) or
     "numpy" (the reference implementation); see the module docstring."""
 
-    g: float = 9.80665
+    g: float = G
     regime: str = "subcritical"
     friction_slope: str = "average_conveyance"
     contraction: float = 0.1

@@ -10,8 +10,7 @@ from geoflow.hydraulics.engine_numpy import NumpyEngine
 from geoflow.hydraulics.geometry import build_table, fast_properties, flow_state
 from geoflow.hydraulics.lookup import slopes_in_windows, windows
 from geoflow.hydraulics.packed import pack_reach
-from geoflow.hydraulics.solver import (FRICTION_RULES, Boundary, SolverOptions, _engine, _march,
-                                       solve_events)
+from geoflow.hydraulics.solver import FRICTION_RULES, Boundary, SolverOptions, _engine, _march, solve_events
 
 
 def natural_section(k, drop=0.0):

@@ -1,7 +1,7 @@
 """Manufactured steady solutions in the manner of MacDonald et al. (1997), energy form.
 
 MacDonald, Baines, Nichols & Samuels (1997), J. Hydraul. Eng. 123(11):1041-1045: choose the depth
-h(x), derive the bed so that h(x) is exact. Energy form (REFERENCES 1.2):
+h(x), derive the bed so that h(x) is exact. Energy form (MacDonald et al. 1997):
     z_b(x) = z_b(0) - [E(x) - E(0)] - int_0^x Sf(h(s)) ds,  E = h + Q^2/(2 g A^2), Sf = Q^2/K^2
 in a prismatic trapezoid (one subdivision, alpha = 1). The integral is taken with scipy quad.
 A standard-step run then differs from h(x) only through the discrete friction term: O(dx^2).
@@ -67,6 +67,6 @@ def test_manufactured_profile_recovered_and_second_order(h, regime, froude_ok, e
     assert err10 < 0.01
     _, err20 = run(20.0, h, regime, engine)
     _, err40 = run(40.0, h, regime, engine)
-    # second order: the error ratio approaches 4 when the spacing halves (REFERENCES 1.2)
+    # second order: the error ratio approaches 4 when the spacing halves (MacDonald et al. 1997)
     assert 3.8 < err20 / err10 < 4.2
     assert 3.8 < err40 / err20 < 4.2

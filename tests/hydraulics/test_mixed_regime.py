@@ -76,7 +76,7 @@ def test_mild_to_steep_break_passes_through_critical(engine):
     y = prof.wse - zb
     yc = ((Q / B) ** 2 / G) ** (1 / 3)  # rectangle critical depth (Chow 1959, ch. 3, from memory)
     assert y[100] == pytest.approx(yc, abs=1e-3)
-    assert prof.regime[100] == "critical" and "critical_assumed" in prof.flags[100]
+    assert prof.regime[100] == "critical" and "critical_fallback" in prof.flags[100]
     assert np.all(prof.regime[101:] == "supercritical")
     assert np.all(prof.regime[:100] == "subcritical")
     # M2 drawdown upstream of the break vs the GVF ODE started just above critical depth

@@ -32,7 +32,7 @@ def trapezoid_ode(b, z, n, q, s0, g):
 
 
 def test_uniform_flow_stays_at_normal_depth(engine):
-    # A prismatic channel at constant slope with a normal-depth boundary stays uniform (REFERENCES 1.4)
+    # A prismatic channel at constant slope with a normal-depth boundary stays uniform (Chow 1959, ch. 9: uniform flow is a solution of the GVF equation)
     x = np.arange(0, 2001, 100.0)
     tables, lengths = prismatic(5.0, 2.0, 6.0, 0.03, 0.001, x)
     q = np.full(x.size, 20.0)
@@ -64,7 +64,7 @@ def test_m_curves_vs_solve_ivp(kind, engine):
 
 
 def test_horizontal_bed_h2_closed_form(engine):
-    # REFERENCES 1.4: horizontal wide rectangle, Manning, q = 2, n = 0.03: h goes 1 -> 2 m over
+    # Closed form of dx/dh for an H2 curve (Chow 1959, ch. 10, integrated here): horizontal wide rectangle, Manning, q = 2, n = 0.03: h goes 1 -> 2 m over
     # 1099.018 m (closed form, computed here). A 100 km wide rectangle makes R = h to 4e-5.
     b, q, n = 1.0e5, 2.0, 0.03
     x = np.linspace(0.0, 1099.018, 81)
@@ -76,10 +76,10 @@ def test_horizontal_bed_h2_closed_form(engine):
 
 
 def test_chow_example_10_1_backwater_length(engine):
-    # Chow (1959) Ex. 10-1 channel (REFERENCES 2.1, from memory): dam holds 5.00 ft; length to
+    # Chow (1959) Ex. 10-1 channel (from memory): dam holds 5.00 ft; length to
     # 3.40 ft. Here alpha = 1 (one subdivision), so the reference is the exact integral of
     # dx/dy = (1 - Q^2 T/(g A^3)) / (S0 - Sf) with alpha = 1 (scipy quad), within 1%; the
-    # alpha = 1.10 values in REFERENCES 2.1 (2367.8-2384.4 ft) are checked within 2%.
+    # alpha = 1.10 lengths computed for the four friction-slope rules (2367.8-2384.4 ft) are checked within 2%.
     b, z, n, s0, q, g = 20 * FT, 2.0, 0.025, 0.0016, 400 * FT ** 3, 32.2 * FT
     x = np.arange(0, 3000.1, 25.0) * FT
     tables, lengths = prismatic(b, z, 8 * FT, n, s0, x)
@@ -103,9 +103,9 @@ def _two_rectangles(b_up, b_dn, q, y_dn, opts, length=50.0):
 
 @pytest.mark.parametrize("b_up,b_dn", [(20.0, 10.0), (10.0, 20.0)])
 def test_transition_loss_vs_hand_energy_balance(b_up, b_dn, engine):
-    # Hand energy balance (REFERENCES 3.3): y1 + V1^2/2g = y2 + V2^2/2g + L Sf_bar + C |dh_v|,
+    # Hand energy balance (USACE 1993 EM 1110-2-1416, from memory): y1 + V1^2/2g = y2 + V2^2/2g + L Sf_bar + C |dh_v|,
     # C = contraction (0.1) where the velocity head rises downstream, else expansion (0.3);
-    # Sf_bar by average conveyance (REFERENCES 3.2); rectangles A = b y, P = b + 2y.
+    # Sf_bar by average conveyance (Reed & Wolfkill 1976); rectangles A = b y, P = b + 2y.
     q, y2, g, ln = 30.0, 1.5, 9.80665, 50.0
     opts = SolverOptions(engine=engine)
     k = lambda b, y: b * y * (b * y / (b + 2 * y)) ** (2 / 3) / 0.02  # noqa: E731
@@ -124,7 +124,7 @@ def test_transition_loss_vs_hand_energy_balance(b_up, b_dn, engine):
 
 @pytest.mark.parametrize("rule", ["arithmetic", "geometric", "harmonic"])
 def test_friction_slope_rules_vs_hand_balance(rule, engine):
-    # REFERENCES 3.2 averaging rules, hand energy balance in a prismatic rectangle (no eddy loss)
+    # The four averaging rules (Reed & Wolfkill 1976), hand energy balance in a prismatic rectangle (no eddy loss)
     q, y2, g, ln, b = 12.0, 1.0, 9.80665, 200.0, 6.0
     sf = lambda y: (q * 0.02 / (b * y * (b * y / (b + 2 * y)) ** (2 / 3))) ** 2  # noqa: E731
     mean = {"arithmetic": lambda a, c: (a + c) / 2, "geometric": lambda a, c: np.sqrt(a * c),
@@ -149,7 +149,7 @@ def test_solve_events_matches_single_solves(engine):
 
 def test_flow_change_between_sections_vs_hand_balance(engine):
     # Discharge rises from 20 to 30 m3/s between two identical rectangles (b = 8 m, n = 0.02):
-    # E1 = E2 + L ((Q1 + Q2)/(K1 + K2))^2 + C |dh_v| (REFERENCES 3.2, 3.3), solved with brentq
+    # E1 = E2 + L ((Q1 + Q2)/(K1 + K2))^2 + C |dh_v| (Reed & Wolfkill 1976; USACE 1993), solved with brentq
     b, g, ln, q1, q2, y2 = 8.0, 9.80665, 150.0, 20.0, 30.0, 1.6
     k = lambda y: b * y * (b * y / (b + 2 * y)) ** (2 / 3) / 0.02  # noqa: E731
     hv = lambda q, y: (q / (b * y)) ** 2 / (2 * g)  # noqa: E731

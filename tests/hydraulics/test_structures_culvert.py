@@ -10,9 +10,19 @@ from scipy.optimize import brentq
 from geoflow.errors import HydraulicsError
 from geoflow.hydraulics.structures.barrel import critical_depth_box, critical_depth_circular
 from geoflow.hydraulics.structures.culvert import (
-    Culvert, culvert_headwater, inlet_control_headwater, outlet_control_headwater, road_discharge)
+    Culvert,
+    culvert_headwater,
+    inlet_control_headwater,
+    outlet_control_headwater,
+    road_discharge,
+)
 from geoflow.hydraulics.structures.inlets import (
-    INLETS, InletCoefficients, submerged_ratio, unsubmerged_form1_ratio, unsubmerged_form2_ratio)
+    INLETS,
+    InletCoefficients,
+    submerged_ratio,
+    unsubmerged_form1_ratio,
+    unsubmerged_form2_ratio,
+)
 
 G = 9.81  # the check values below were computed with g = 9.81
 

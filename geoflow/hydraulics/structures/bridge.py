@@ -59,10 +59,17 @@ from geoflow.errors import HydraulicsError
 from geoflow.hydraulics.critical import critical_wse
 from geoflow.hydraulics.geometry import SectionTable, properties
 from geoflow.hydraulics.structures.common import (
-    G, StructureResult, event_arrays, flags_per_event, root_above, submergence_ratio,
-    velocity_head, villemonte_factor, wse_from_energy)
-from geoflow.hydraulics.structures.lowflow import (
-    YARNELL_RANGE, energy_method, momentum_method, yarnell_method)
+    G,
+    StructureResult,
+    event_arrays,
+    flags_per_event,
+    root_above,
+    submergence_ratio,
+    velocity_head,
+    villemonte_factor,
+    wse_from_energy,
+)
+from geoflow.hydraulics.structures.lowflow import YARNELL_RANGE, energy_method, momentum_method, yarnell_method
 from geoflow.hydraulics.structures.opening import Bridge, build_faces
 
 DECK_PIECES = 400

@@ -16,12 +16,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from geoflow.constants import G  # noqa: F401  (re-exported: the structures import it from here)
 from geoflow.errors import HydraulicsError
 from geoflow.hydraulics.critical import critical_wse
 from geoflow.hydraulics.geometry import SectionTable, flow_state
 from geoflow.hydraulics.roots import bracketed_root
 
-G = 9.80665
 CONTROLS = ("inlet", "outlet", "weir", "free_surface", "pressure", "overtopping")
 VILLEMONTE_EXPONENT = 0.385
 DROWNED_RATIO = 0.9

@@ -42,8 +42,17 @@ from geoflow.errors import HydraulicsError
 from geoflow.hydraulics.roots import bracketed_root
 from geoflow.hydraulics.structures.barrel import SHAPES, Barrel
 from geoflow.hydraulics.structures.common import (
-    DROWNED_RATIO, G, StructureResult, choice, event_arrays, finite, flags_per_event,
-    positive, submergence_ratio, villemonte_factor)
+    DROWNED_RATIO,
+    G,
+    StructureResult,
+    choice,
+    event_arrays,
+    finite,
+    flags_per_event,
+    positive,
+    submergence_ratio,
+    villemonte_factor,
+)
 from geoflow.hydraulics.structures.inlets import INLETS, KU_INLET, InletCoefficients, InletCurve
 
 KU_OUTLET = 19.63
@@ -124,8 +133,8 @@ class Culvert:
     def barrel(self) -> Barrel:
         """The geometry of one barrel."""
         if self.shape == "circular":
-            return Barrel("circular", self.diameter, self.diameter)
-        return Barrel("box", self.span, self.rise)
+            return Barrel("circular", float(self.diameter or 0.0), float(self.diameter or 0.0))
+        return Barrel("box", float(self.span or 0.0), float(self.rise or 0.0))
 
     @property
     def slope(self) -> float:
@@ -152,7 +161,7 @@ def inlet_control_headwater(q_barrel, culvert: Culvert, g: float = G):
     """HWi (m above the inlet invert) per barrel discharge, and the regime (0 unsubmerged,
     1 transition, 2 submerged)."""
     x = culvert.intensity(q_barrel)
-    curve = culvert._curve if g == G else InletCurve(
+    curve = culvert.__dict__["_curve"] if g == G else InletCurve(
         culvert.coefficients, culvert.slope, lambda xx: culvert._hc_ratio(xx, g), culvert.name)
     ratio, regime = curve.ratio(x)
     return ratio * culvert.barrel.rise, regime
@@ -186,7 +195,7 @@ def road_discharge(headwater_wse, tailwater_wse, culvert: Culvert):
         return np.zeros(np.shape(headwater_wse))
     h1 = np.maximum(np.asarray(headwater_wse, dtype=float) - culvert.crest, 0.0)
     h2 = np.asarray(tailwater_wse, dtype=float) - culvert.crest
-    free = culvert.crest_coefficient * culvert.crest_length * h1 ** 1.5
+    free = culvert.crest_coefficient * float(culvert.crest_length or 0.0) * h1 ** 1.5
     return free * villemonte_factor(submergence_ratio(h1, h2))
 
 

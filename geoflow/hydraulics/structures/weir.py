@@ -43,8 +43,20 @@ import numpy as np
 from geoflow.errors import HydraulicsError
 from geoflow.hydraulics.geometry import SectionTable
 from geoflow.hydraulics.structures.common import (
-    DROWNED_RATIO, G, StructureResult, choice, event_arrays, finite, flags_per_event,
-    positive, root_above, submergence_ratio, velocity_head, villemonte_factor, wse_from_energy)
+    DROWNED_RATIO,
+    G,
+    StructureResult,
+    choice,
+    event_arrays,
+    finite,
+    flags_per_event,
+    positive,
+    root_above,
+    submergence_ratio,
+    velocity_head,
+    villemonte_factor,
+    wse_from_energy,
+)
 
 KINDS = ("broad_crested", "sharp_crested")
 RULES = {"broad_crested": ("bos",), "sharp_crested": ("rehbock", "kindsvater_carter")}
