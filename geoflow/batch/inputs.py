@@ -12,6 +12,7 @@ from ..config.crosscheck import input_problems, raise_problems
 from ..errors import ConfigError, GeoflowError
 from ..roughness import landcover_classes
 from ..sections import orient_centreline
+from .marks import match_marks
 
 
 @dataclass(frozen=True)
@@ -24,6 +25,7 @@ class Inputs:
     user_lines: dict = field(default_factory=dict)   # reach_id -> [LineString] user section lines
     warnings: dict = field(default_factory=dict)     # reach_id -> [str] (e.g. direction reversed)
     unusable: dict = field(default_factory=dict)     # reach_id -> why its centreline cannot be used
+    marks: dict = field(default_factory=dict)        # reach_id -> marks.ReachMarks ([calibration] observations)
 
 
 def open_inputs(cfg: Config) -> Inputs:
@@ -51,7 +53,12 @@ def open_inputs(cfg: Config) -> Inputs:
         if unknown:
             raise ConfigError(f"{cfg.sections.lines}: section lines name reach(es) {', '.join(map(repr, unknown))} "
                               f"that are not in {cfg.reaches.centrelines.name}; fix the {cfg.reaches.id_field!r} values")
-    return Inputs(dem=dem, reaches=tuple(reaches), cover=cover, user_lines=user, warnings=warnings, unusable=bad)
+    marks = {}
+    if cfg.calibration is not None:
+        observed = layers.read_marks(cfg.calibration.observations, dem.crs, layer=cfg.calibration.layer)
+        marks = match_marks(cfg, observed, reaches)
+    return Inputs(dem=dem, reaches=tuple(reaches), cover=cover, user_lines=user, warnings=warnings, unusable=bad,
+                  marks=marks)
 
 
 def _oriented(rid: str, line, dem, warnings: dict):

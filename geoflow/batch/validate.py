@@ -10,8 +10,9 @@ Steps, each problem collected rather than raised at once where that makes sense:
    cell_size`` against the DEM);
 2. every reach: its id (path-safe, not too long, unique once made path-safe), its centreline
    inside the DEM and over DEM data, flow changes within its length;
-3. every reach's sections cut and given Manning's n (what the run will use), and stage / rating
-   boundaries checked against the ground of the end sections;
+3. every reach's sections cut and given Manning's n (what the run will use), stage / rating
+   boundaries checked against the ground of the end sections, and observed levels
+   ([calibration] observations) within the sections of the reach they belong to;
 4. no output may overwrite an input (:func:`geoflow.batch.layout.check_inputs_not_outputs`).
 
 Reach-level problems (2-3) are returned by reach; :func:`check` and ``run`` raise them as one
@@ -34,6 +35,7 @@ from ..records import ReachGeometry
 from . import reach
 from .inputs import Inputs, open_inputs
 from .layout import check_inputs_not_outputs
+from .marks import check_within_sections
 
 MAX_LISTED = 3      # problems spelt out in the one-line message; the rest are counted
 
@@ -98,6 +100,7 @@ def validate(config: str | Path | Config, others: tuple = ()) -> CheckResult:
             problems[rid] = f"{cfg.path}: " + "; ".join(level)
         else:
             geoms[rid] = geom
+    check_within_sections(cfg, inputs.marks, geoms)
     check_inputs_not_outputs(cfg, tuple(others))
     order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)
     problems = {rid: problems[rid] for rid in order if rid in problems}

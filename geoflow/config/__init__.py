@@ -20,11 +20,13 @@ from .model import (  # noqa: F401
     VERTICAL_UNITS,
     BoundaryConfig,
     BoundarySpec,
+    CalibrationConfig,
     Config,
     Event,
     FlowChange,
     HydraulicsConfig,
     MappingConfig,
+    RatingCurvesConfig,
     ReachesConfig,
     RoughnessClass,
     RoughnessConfig,
@@ -34,6 +36,7 @@ from .model import (  # noqa: F401
 )
 from .read import (
     _read_boundary,
+    _read_bspec,
     _read_events,
     _read_hydraulics,
     _read_mapping,
@@ -44,13 +47,15 @@ from .read import (
     _read_terrain,
     _Reader,
 )
+from .read_analysis import read_calibration, read_rating_curves
 
 __all__ = ["load_config", "Config", "RunConfig", "TerrainConfig", "ReachesConfig", "SectionsConfig",
            "RoughnessClass", "RoughnessConfig", "FlowChange", "Event", "BoundarySpec", "BoundaryConfig",
-           "HydraulicsConfig", "MappingConfig", "REGIMES", "BOUNDARY_TYPES", "FRICTION_SLOPE_METHODS",
+           "HydraulicsConfig", "MappingConfig", "CalibrationConfig", "RatingCurvesConfig", "REGIMES", "BOUNDARY_TYPES", "FRICTION_SLOPE_METHODS",
            "MAPPING_OUTPUTS", "VERTICAL_UNITS"]
 
-TOP_LEVEL = ("run", "terrain", "reaches", "sections", "roughness", "events", "boundary", "hydraulics", "mapping")
+TOP_LEVEL = ("run", "terrain", "reaches", "sections", "roughness", "events", "boundary", "hydraulics", "mapping",
+             "calibration", "rating_curves")
 
 
 def load_config(path: str | Path) -> Config:
@@ -74,6 +79,7 @@ def load_config(path: str | Path) -> Config:
         run=_read_run(r, doc), terrain=_read_terrain(r, doc), reaches=_read_reaches(r, doc),
         sections=_read_sections(r, doc), roughness=_read_roughness(r, doc), events=_read_events(r, doc),
         boundary=_read_boundary(r, doc), hydraulics=_read_hydraulics(r, doc), mapping=_read_mapping(r, doc),
+        calibration=read_calibration(r, doc), rating_curves=read_rating_curves(r, doc, _read_bspec),
     )
     if r.problems:
         raise ConfigError(_summarise(path, r.problems), problems=[f"{path}: {p}" for p in r.problems])
