@@ -69,7 +69,7 @@ def match_marks(cfg, marks, reaches) -> dict[str, ReachMarks]:
     if no_q.size:
         raise InputDataError(f"{marks.where}: mark(s) lie on a reach their event gives no discharge for: "
                              f"{_listing(marks, no_q, lambda i: f' (reach {ids[near[i]]!r}, event {marks.event[i]!r})')}")
-    chainage = shapely.line_locate_point(lines[near], pts)
+    chainage = _chainage(lines[near], marks.x, marks.y)
     out = {}
     for k, rid in enumerate(ids):
         sel = np.flatnonzero(near == k)
@@ -77,6 +77,22 @@ def match_marks(cfg, marks, reaches) -> dict[str, ReachMarks]:
             out[rid] = ReachMarks(marks.feature[sel], marks.event[sel].astype(str), chainage[sel],
                                   marks.wse[sel], offset[sel])
     return out
+
+
+def _chainage(lines, x, y) -> np.ndarray:
+    """Chainage of each point on its line; a point beyond an end gets a chainage beyond it (negative
+    upstream of the start, over the length downstream of the end), measured along the end segment."""
+    ch = shapely.line_locate_point(lines, shapely.points(x, y))
+    length = shapely.length(lines)
+    for i in np.flatnonzero((ch <= 1e-9) | (ch >= length - 1e-9)):
+        c = shapely.get_coordinates(lines[i])
+        start = ch[i] <= 1e-9
+        a, b = (c[0], c[1]) if start else (c[-1], c[-2])       # end point and its neighbour on the line
+        u = (a - b) / np.hypot(*(a - b))                         # unit vector pointing out of the line
+        beyond = float(np.dot(np.array([x[i], y[i]]) - a, u))
+        if beyond > 1e-6:
+            ch[i] = -beyond if start else length[i] + beyond
+    return ch
 
 
 def check_within_sections(cfg, marks_by_reach: dict, geometries: dict) -> None:
