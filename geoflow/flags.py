@@ -1,7 +1,8 @@
 """Every flag word a section can carry: what it means, what kind of thing it is, what to do.
 
 One table, read by the README's flag glossary, the reports and the terminal summary (pure: no
-imports). Kinds:
+imports). Profile flags come from sections and the solver; ``boundary_controlled`` and ``not_rising``
+appear in rating_curves.csv only. Kinds:
 
 - ``hydraulic``: a fact of the computed flow the reviewer must judge (it may be real);
 - ``tool``: an artefact of how geoflow built the section (width cap, confluence shortening, ...);
@@ -54,6 +55,14 @@ FLAGS: dict[str, Flag] = {f.word: f for f in (
          "check the DEM there (water bodies, voids)"),
     Flag("no_channel_cover", "input", "no land-cover polygon of the channel class crosses the section; the channel "
          "edges were taken from breaks in the ground slope", "add the channel to the land-cover layer there"),
+    Flag("boundary_controlled", "hydraulic", "rating_curves.csv: the section lies within one backwater length "
+         "(0.7 y_n / S0) of the boundary that controls the profile, so its level at this discharge reflects the "
+         "boundary assumption more than the section itself",
+         "do not read the rating here as the section's own; move the boundary farther away (extend the reach) or "
+         "give the boundary a measured rating"),
+    Flag("not_rising", "hydraulic", "rating_curves.csv: the level at this discharge is not above the level at the "
+         "next smaller discharge (a fixed boundary level, a change of regime or a control)",
+         "look at the section and the boundary; a rating must rise with discharge"),
     Flag("landcover_gap", "input", "part of the section lies in no land-cover polygon; [roughness] default_n was "
          "used there", "fill the gap in the land-cover layer"),
 )}

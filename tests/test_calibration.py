@@ -67,7 +67,10 @@ def test_calibration_recovers_true_n_from_marks_at_two_flows(tmp_path):
     res = run(cfg)
     assert not res.failed, res.reaches
     out = tmp_path / "out"
-    cal = json.loads((out / "manifest.json").read_text())["calibration"]["reaches"]["c1"]
+    summary = json.loads((out / "manifest.json").read_text())["calibration"]
+    cal = summary["reaches"]["c1"]
+    assert summary["marks"] == 8 and summary["well_determined"] and summary["rmse_m"] == pytest.approx(cal["rmse_m"])
+    assert summary["multipliers"] == {"c1": cal["multipliers"]} and not summary["bound_hit"]
     n = cal["calibrated_n"]
     print(f"calibrated n {n}, rmse {cal['rmse_m'] * 1000:.2f} mm, {cal['solves']} solves")
     for cls, true in TRUE.items():

@@ -135,12 +135,23 @@ def roughness_cases_entry(cfg: Config) -> dict:
 
 
 def calibration_entry(cfg: Config, reaches: dict) -> dict:
-    """Manifest "calibration": the settings and, per reach with marks, multipliers, rmse and the verdict."""
+    """Manifest "calibration": the settings, a run summary and, per reach with marks, its fit.
+
+    Summary: ``marks`` (all reaches), ``rmse_m`` over all marks, ``well_determined`` (every reach's fit
+    is), ``bound_hit`` (some multiplier stopped at a bound), ``multipliers`` {reach: {group: m}}.
+    """
     cal = cfg.calibration
+    fits = {rid: r["calibration"] for rid, r in reaches.items() if r.get("calibration")}
+    marks = sum(f["marks"] for f in fits.values())
+    sse = sum(f["rmse_m"] ** 2 * f["marks"] for f in fits.values())
     return {"observations": os.path.relpath(cal.observations, cfg.run.output_dir),
             "adjust": [g if isinstance(g, str) else list(g) for g in cal.adjust], "bounds": list(cal.bounds),
-            "mark_accuracy_m": cal.mark_accuracy,
-            "reaches": {rid: r["calibration"] for rid, r in reaches.items() if r.get("calibration")}}
+            "mark_accuracy_m": cal.mark_accuracy, "marks": marks,
+            "rmse_m": (sse / marks) ** 0.5 if marks else None,
+            "well_determined": bool(fits) and all(f["well_determined"] for f in fits.values()),
+            "bound_hit": any(f["bound_hit"] for f in fits.values()),
+            "multipliers": {rid: f["multipliers"] for rid, f in fits.items()},
+            "reaches": fits}
 
 
 def load_previous(out_dir: Path) -> dict | None:

@@ -55,10 +55,14 @@ class CheckResult:
                  f"{self.inputs.dem.cell_size:g} m cells)",
                  f"{len(self.geometries) + len(self.problems)} reach(es), {len(cfg.events)} event(s): "
                  + ", ".join(e.name for e in cfg.events)]
+        if cfg.roughness.cases:
+            lines.append(f"roughness cases: {', '.join(cfg.roughness.all_cases())}")
         for rid, g in self.geometries.items():
             flagged = sum(1 for s in g.sections if s.flags)
+            marks = self.inputs.marks.get(rid)
+            observed = f", {marks.wse.size} observed level(s) to calibrate to" if marks is not None else ""
             lines.append(f"  reach {rid}: {g.sections[-1].chainage:.0f} m, {len(g.sections)} sections, "
-                         f"{flagged} flagged")
+                         f"{flagged} flagged{observed}")
             lines.extend(f"    warning: {w}" for w in g.warnings)
         lines.extend(f"  reach {rid}: PROBLEM: {msg}" for rid, msg in self.problems.items())
         return lines

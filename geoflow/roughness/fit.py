@@ -106,6 +106,8 @@ def _diagnose(x, r, jac, at_bound, sigma: float, evaluations: int) -> Fit:
     if not full_rank:
         reasons.append("the marks do not tell the groups apart (the Jacobian is rank deficient: some group's n "
                        "changes no mark, or the groups change every mark in the same proportion)")
+    elif np.any(se > SE_LIMIT) and p == 1:
+        reasons.append(f"the marks barely respond to the multiplier (relative standard error {se[0]:.0%})")
     elif np.any(se > SE_LIMIT):
         reasons.append(f"relative standard error up to {np.max(se):.0%} (condition number {s[0] / s[-1]:.3g}); "
                        "the groups trade off")
