@@ -25,6 +25,7 @@ from ..errors import ConfigError, GeoflowError, HydraulicsError, InputDataError,
 from ..naming import safe_name
 from ..records import ReachGeometry
 from ..roughness import case_factors, combine, composite_n_by_part
+from ..roughness.overlay import GAP_CLASS
 from . import calibrate, ratings, reach
 from .inputs import Inputs, open_inputs
 from .layout import relative_name
@@ -228,11 +229,12 @@ def _velocity_inputs(cfg: Config, inputs, prof, factors: dict | None = None):
     (times its class's calibration factor)."""
     from ..mapping import VelocityInputs
     table = cfg.roughness.n_table()
-    fallback = np.nan if cfg.roughness.default_n is None else cfg.roughness.default_n
     factors = factors or {}
+    gap_n = None if cfg.roughness.default_n is None else cfg.roughness.default_n * factors.get(GAP_CLASS, 1.0)
+    fallback = np.nan if cfg.roughness.default_n is None else cfg.roughness.default_n
     n = np.array([table.get(str(c), fallback) * factors.get(str(c), 1.0) for c in inputs.cover.classes], dtype=float)
     return VelocityInputs(friction_slope=np.asarray(prof.friction_slope, dtype=float),
-                          landcover=(np.asarray(inputs.cover.geometries), n), default_n=cfg.roughness.default_n)
+                          landcover=(np.asarray(inputs.cover.geometries), n), default_n=gap_n)
 
 
 def _write_sections_part(cfg: Config, inputs: Inputs, geom) -> Path:
