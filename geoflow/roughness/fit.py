@@ -32,7 +32,7 @@ something else: missing bathymetry, DEM error, a wrong flow).
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Callable
 
 import numpy as np
@@ -84,10 +84,14 @@ def fit_multipliers(residual: Callable[[np.ndarray], np.ndarray], groups: int, b
         return np.concatenate([np.asarray(residual(x), dtype=float), weight * x])
 
     res = least_squares(fun, x0, bounds=(np.full(groups, lo), np.full(groups, hi)), method="trf", x_scale=1.0,
-                        diff_step=DIFF_STEP, ftol=1e-12, xtol=1e-10, gtol=1e-12, max_nfev=max_evaluations)
+                        diff_step=DIFF_STEP, ftol=1e-10, xtol=1e-8, gtol=1e-10, max_nfev=max_evaluations)
     at_bound = (res.active_mask != 0) | (np.abs(res.x - lo) < 1e-6) | (np.abs(res.x - hi) < 1e-6)
     m = res.fun.size - groups
-    return _diagnose(res.x, res.fun[:m], res.jac[:m], at_bound, mark_accuracy, count[0])
+    fit = _diagnose(res.x, res.fun[:m], res.jac[:m], at_bound, mark_accuracy, count[0])
+    if res.status == 0:       # max_nfev reached
+        return replace(fit, well_determined=False, reasons=fit.reasons + (
+            f"the fit stopped after {count[0]} solves without converging",))
+    return fit
 
 
 def _diagnose(x, r, jac, at_bound, sigma: float, evaluations: int) -> Fit:
