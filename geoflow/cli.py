@@ -71,7 +71,8 @@ def main(argv: list[str] | None = None) -> int:
     for result in results:
         for rid, r in result.reaches.items():
             print(f"{result.config.run.name}: reach {rid}: " + ("ok" if r.get("status") == "complete"
-                                                                 else f"FAILED: {r.get('error')}"))
+                                                                 else f"FAILED: {r.get('error')}")
+                  + _calibration_note(r.get("calibration")))
         failed += len(result.failed)
         crossing = len(result.crossings)
         if crossing:
@@ -85,6 +86,15 @@ def main(argv: list[str] | None = None) -> int:
               "with --resume to compute only what is missing", file=sys.stderr)
         return 1
     return 0
+
+
+def _calibration_note(cal: dict | None) -> str:
+    """' (calibrated: channel x0.70, ..., rmse 0.012 m)' for a reach entry's calibration, or ''."""
+    if not cal:
+        return ""
+    mult = ", ".join(f"{g} x{m:.3f}" for g, m in cal["multipliers"].items())
+    verdict = "" if cal["well_determined"] else "; NOT well determined, see run.log"
+    return f" (calibrated to {cal['marks']} mark(s): {mult}, rmse {cal['rmse_m']:.3f} m{verdict})"
 
 
 def entry() -> int:

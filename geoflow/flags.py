@@ -1,7 +1,8 @@
 """Every flag word a section can carry: what it means, what kind of thing it is, what to do.
 
 One table, read by the README's flag glossary, the reports and the terminal summary (pure: no
-imports). Kinds:
+imports). Profile flags come from sections and the solver; ``boundary_controlled`` and ``not_rising``
+appear in rating_curves.csv only. Kinds:
 
 - ``hydraulic``: a fact of the computed flow the reviewer must judge (it may be real);
 - ``tool``: an artefact of how geoflow built the section (width cap, confluence shortening, ...);
@@ -60,6 +61,14 @@ FLAGS: dict[str, Flag] = {f.word: f for f in (
     Flag("channel_shape_clipped", "tool", "the channel shape of [channel] shape is wider than the channel part "
          "of this section at the flown water surface and was cut off at the channel edges",
          "check the shape's bottom width and side slope, and the channel land-cover polygon here"),
+    Flag("boundary_controlled", "hydraulic", "rating_curves.csv: the section lies within one backwater length "
+         "(0.7 y_n / S0) of the boundary that controls the profile, so its level at this discharge reflects the "
+         "boundary assumption more than the section itself",
+         "do not read the rating here as the section's own; move the boundary farther away (extend the reach) or "
+         "give the boundary a measured rating"),
+    Flag("not_rising", "hydraulic", "rating_curves.csv: the level at this discharge is not above the level at the "
+         "next smaller discharge (a fixed boundary level, a change of regime or a control)",
+         "look at the section and the boundary; a rating must rise with discharge"),
     Flag("landcover_gap", "input", "part of the section lies in no land-cover polygon; [roughness] default_n was "
          "used there", "fill the gap in the land-cover layer"),
 )}

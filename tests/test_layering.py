@@ -37,7 +37,7 @@ PURE = {
     "geoflow.config": {"numpy"},
     "geoflow.hydraulics": {"numpy", "scipy", "numba"},
     "geoflow.sections": {"numpy", "shapely", "scipy"},
-    "geoflow.roughness": {"numpy", "shapely"},
+    "geoflow.roughness": {"numpy", "scipy", "shapely"},       # scipy: least-squares n multipliers (fit)
 }
 STDLIB = set(sys.stdlib_module_names)
 

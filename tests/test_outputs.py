@@ -142,17 +142,19 @@ def test_sections_gpkg_roundtrip_and_replace(tmp_path):
 
 def test_extent_gpkg_roundtrip(tmp_path):
     sq = Polygon([(0, 0), (10, 0), (10, 10), (0, 10)])
-    gdf = gpd.GeoDataFrame({"reach_id": ["r1", "r1"], "event": ["q10", "q100"]},
+    gdf = gpd.GeoDataFrame({"reach_id": ["r1", "r1"], "event": ["q10", "q100"], "roughness_case": ["normal", "high"]},
                            geometry=[sq, sq.buffer(1.0)], crs="EPSG:32633")
     path = write_extent_gpkg(tmp_path / "inundation.gpkg", gdf)
     assert [name for name, _ in pyogrio.list_layers(path)] == ["extent"]
     back = gpd.read_file(path, layer="extent")
     assert list(back["event"]) == ["q10", "q100"] and back.crs.to_epsg() == 32633
+    assert list(back["roughness_case"]) == ["normal", "high"]
     np.testing.assert_allclose(back.area, gdf.area)
 
 
 def test_gpkg_without_crs_rejected(tmp_path):
-    gdf = gpd.GeoDataFrame({"reach_id": ["r1"], "event": ["e"]}, geometry=[Polygon([(0, 0), (1, 0), (1, 1)])])
+    gdf = gpd.GeoDataFrame({"reach_id": ["r1"], "event": ["e"], "roughness_case": ["normal"]},
+                           geometry=[Polygon([(0, 0), (1, 0), (1, 1)])])
     with pytest.raises(OutputError, match="CRS"):
         write_extent_gpkg(tmp_path / "e.gpkg", gdf)
     assert not (tmp_path / "e.gpkg").exists()

@@ -19,7 +19,7 @@ from ..config import Config
 from ..mapping import mosaic_max
 from ..naming import safe_name
 from .layout import MANIFEST_NAME, relative_name, unrecorded_files
-from .manifest import Manifest, part_paths, unit_key
+from .manifest import Manifest, calibration_entry, part_paths, unit_key
 from .tasks import read_profile_parts
 
 
@@ -45,6 +45,10 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     if "extent" in cfg.mapping.outputs:
         result.paths["extent"] = outputs.write_extent_gpkg(out / "inundation.gpkg", _extents(cfg, done, crs))
     result.paths.update(_mosaics(cfg, done))
+    result.paths.update(_spreads(cfg, done))
+    result.paths.update(_reach_tables(cfg, order, man))
+    if cfg.calibration is not None:
+        man.data["calibration"] = calibration_entry(cfg, man.data["reaches"])
     man.data["files"] = sorted(relative_name(out, f) for f in result.paths.values())
     recorded = man.recorded_files() | {MANIFEST_NAME}
     man.data["stale_files"] = unrecorded_files(out, recorded)
@@ -95,6 +99,39 @@ def _mosaics(cfg: Config, done: dict[str, list[str]]) -> dict:
     return written
 
 
+def _spreads(cfg: Config, done: dict[str, list[str]]) -> dict:
+    """uncertainty/<event>_wse_spread.tif: high-minus-low WSE of every reach (the larger where reaches overlap)."""
+    written = {}
+    for ev in cfg.events:
+        tifs = [part_paths(cfg.run.output_dir, safe_name(rid), safe_name(ev.name))["spread"]
+                for rid, events in done.items() if ev.name in events]
+        tifs = [t for t in tifs if t.is_file()]
+        if tifs:
+            path = cfg.run.output_dir / "uncertainty" / f"{safe_name(ev.name)}_wse_spread.tif"
+            written[f"spread_{ev.name}"] = mosaic_max(tifs, path)
+    return written
+
+
+def _reach_tables(cfg: Config, order: list[str], man: Manifest) -> dict:
+    """calibration.csv and rating_curves.csv from the per-reach parts of complete reaches."""
+    written = {}
+    specs = (("calibration", cfg.calibration, "calibration.csv", outputs.write_calibration_csv,
+              outputs.CALIBRATION_COLUMNS),
+             ("ratings", cfg.rating_curves, "rating_curves.csv", outputs.write_rating_csv, outputs.RATING_COLUMNS))
+    for key, wanted, name, write, columns in specs:
+        if wanted is None:
+            continue
+        frames = []
+        for rid in order:
+            path = part_paths(cfg.run.output_dir, safe_name(rid))[key]
+            if man.data["reaches"].get(rid, {}).get("status") == "complete" and path.is_file():
+                frames.append(pd.read_csv(path, keep_default_na=False, na_values=[""],
+                                          dtype={"reach_id": str, "event": str, "flags": str, "regime": str}))
+        table = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame({c: [] for c in columns})
+        written[key] = write(cfg.run.output_dir / name, table)
+    return written
+
+
 def _overlapping(tifs: list) -> list:
     """The rasters whose extent overlaps (with positive area) at least one other's."""
     if len(tifs) < 2:
@@ -118,7 +155,8 @@ def _sections(cfg: Config, order: list[str], profile: pd.DataFrame, crs: str) ->
         gdf = gpd.read_file(path, layer="sections")
         gdf["reach_id"] = gdf["reach_id"].astype(str)
         gdf["flags"] = gdf["flags"].fillna("")
-        mine = profile[profile["reach_id"] == rid] if len(profile) else profile
+        mine = profile[(profile["reach_id"] == rid) & (profile["roughness_case"] == "normal")] if len(profile) \
+            else profile
         for ev in cfg.events:
             rows = mine[mine["event"] == ev.name] if len(mine) else mine
             if len(rows):
@@ -137,7 +175,11 @@ def _extents(cfg: Config, done: dict[str, list[str]], crs: str) -> gpd.GeoDataFr
             if path.is_file():
                 frames.append(gpd.read_file(path, layer="extent"))
     if not frames:
-        return gpd.GeoDataFrame({"reach_id": [], "event": [], "area_m2": []}, geometry=[], crs=crs)
+        return gpd.GeoDataFrame({"reach_id": [], "event": [], "roughness_case": [], "area_m2": []}, geometry=[],
+                                crs=crs)
     gdf = pd.concat(frames, ignore_index=True)
     gdf["reach_id"] = gdf["reach_id"].astype(str)
+    if "roughness_case" not in gdf:                 # parts written before roughness cases existed
+        gdf.insert(2, "roughness_case", "normal")
+    gdf["roughness_case"] = gdf["roughness_case"].fillna("normal")
     return gpd.GeoDataFrame(gdf, geometry="geometry", crs=crs)

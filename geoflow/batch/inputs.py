@@ -14,6 +14,7 @@ from ..records import SurveyPoints
 from ..roughness import landcover_classes
 from ..sections import orient_centreline
 from ..sections.survey import assign_points, describe_points
+from .marks import match_marks
 
 
 @dataclass(frozen=True)
@@ -27,6 +28,7 @@ class Inputs:
     warnings: dict = field(default_factory=dict)     # reach_id -> [str] (e.g. direction reversed)
     unusable: dict = field(default_factory=dict)     # reach_id -> why its centreline cannot be used
     survey: dict = field(default_factory=dict)       # reach_id -> SurveyPoints near it ([channel] survey)
+    marks: dict = field(default_factory=dict)        # reach_id -> marks.ReachMarks ([calibration] observations)
 
 
 def open_inputs(cfg: Config) -> Inputs:
@@ -55,8 +57,12 @@ def open_inputs(cfg: Config) -> Inputs:
             raise ConfigError(f"{cfg.sections.lines}: section lines name reach(es) {', '.join(map(repr, unknown))} "
                               f"that are not in {cfg.reaches.centrelines.name}; fix the {cfg.reaches.id_field!r} values")
     survey = _survey_points(cfg, dem, reaches, warnings)
+    marks = {}
+    if cfg.calibration is not None:
+        observed = layers.read_marks(cfg.calibration.observations, dem.crs, layer=cfg.calibration.layer)
+        marks = match_marks(cfg, observed, reaches)
     return Inputs(dem=dem, reaches=tuple(reaches), cover=cover, user_lines=user, warnings=warnings, unusable=bad,
-                  survey=survey)
+                  survey=survey, marks=marks)
 
 
 def _survey_points(cfg: Config, dem, reaches, warnings: dict) -> dict[str, SurveyPoints]:

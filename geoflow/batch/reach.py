@@ -6,6 +6,7 @@ geometry, hydraulics/ computes; mapping, outputs and reports are written by :mod
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Mapping
 
 import numpy as np
 import pandas as pd
@@ -18,6 +19,7 @@ from ..errors import GeoflowError, HydraulicsError
 from ..hydraulics import Boundary, SolverOptions, build_table
 from ..hydraulics import solve_events as hydraulics_solve_events
 from ..records import ReachGeometry
+from ..roughness.cases import scaled_classes, scaled_section
 from .inputs import Inputs
 
 
@@ -82,38 +84,52 @@ def to_boundary(spec: BoundarySpec | None, junction_wse: np.ndarray | None = Non
     return Boundary.rating(discharge=np.asarray(spec.discharge), stage=np.asarray(spec.stage))
 
 
-def solver_options(cfg: Config) -> SolverOptions:
+def solver_options(cfg: Config, tolerance: float | None = None) -> SolverOptions:
+    """Solver settings of the config; ``tolerance`` (m) overrides the energy-balance tolerance."""
     h = cfg.hydraulics
+    extra = {} if tolerance is None else {"tolerance": tolerance}
     return SolverOptions(g=h.gravity, regime=cfg.boundary.regime, friction_slope=h.friction_slope,
-                         contraction=h.contraction, expansion=h.expansion)
+                         contraction=h.contraction, expansion=h.expansion, **extra)
 
 
-def build_tables(geom: ReachGeometry, cfg: Config | None = None, discharge: float | None = None) -> list:
+def build_tables(geom: ReachGeometry, cfg: Config | None = None, discharge: float | None = None,
+                 factors: Mapping[str, float] | None = None) -> list:
     """Hydraulic property tables of every section.
 
     With ``cfg``, classes that give ``n_by_depth`` make n vary with the local flow depth over each
     segment, and classes that give ``n_by_discharge`` take n at ``discharge`` (the event's
-    upstream discharge of the reach; tables are then built per event).
+    upstream discharge of the reach; tables are then built per event). ``factors`` {class: f}
+    multiply every n of a class, laws included (roughness cases, calibration multipliers;
+    :mod:`geoflow.roughness.cases`); the ground and the n layout of the sections are reused.
     """
     classes = {} if cfg is None else cfg.roughness.classes
-    return [build_table(s.station, s.elevation, roughness.n_at_discharge(s, classes, discharge), s.part,
-                        n_depth=roughness.n_by_depth_table(s, classes),
-                        name=f"reach {geom.reach_id!r} section {s.section_id}")
-            for s in geom.sections]
+    factors = dict(factors or {})
+    if factors:
+        classes = scaled_classes(classes, factors)
+    out = []
+    for s in geom.sections:
+        s = scaled_section(s, factors)
+        out.append(build_table(s.station, s.elevation, roughness.n_at_discharge(s, classes, discharge), s.part,
+                               n_depth=roughness.n_by_depth_table(s, classes),
+                               name=f"reach {geom.reach_id!r} section {s.section_id}"))
+    return out
 
 
 def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Event],
-                 junction_wse: dict | None = None) -> dict:
+                 junction_wse: dict | None = None, options: SolverOptions | None = None,
+                 downstream: BoundarySpec | None = None) -> dict:
     """Steady profiles of several events on one reach, solved together (vectorised across events).
 
     Returns {event name: Profile or HydraulicsError}: if the joint solve fails, each event is
     solved alone so one bad event (e.g. a discharge outside a rating table) spares the others.
+    ``downstream`` replaces the reach's downstream boundary (rating curves).
     """
     chainage = np.array([s.chainage for s in geom.sections])
     down, up = cfg.boundary.for_reach(geom.reach_id)
+    down = downstream or down
     q = np.stack([discharge_along(ev, geom.reach_id, chainage) for ev in events])
     jw = None if junction_wse is None else np.array([junction_wse[ev.name] for ev in events])
-    kw = dict(upstream=to_boundary(up), options=solver_options(cfg))
+    kw = dict(upstream=to_boundary(up), options=options or solver_options(cfg))
     try:
         return dict(zip((ev.name for ev in events),
                         hydraulics_solve_events(tables, geom.lengths, q, downstream=to_boundary(down, jw), **kw)))
@@ -130,19 +146,22 @@ def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Ev
 
 
 def solve_reach(cfg: Config, geom: ReachGeometry, events: list[Event] | None = None,
-                junction_wse: dict | None = None) -> dict:
+                junction_wse: dict | None = None, factors: Mapping[str, float] | None = None,
+                options: SolverOptions | None = None, downstream: BoundarySpec | None = None) -> dict:
     """Steady profiles of the events (default: all) on one reach -> {event: Profile or HydraulicsError}.
 
-    Events are solved together on shared tables, unless some class's n depends on discharge:
-    then each event gets tables built with n at its own upstream discharge.
+    Events are solved together on shared tables (built once for these n ``factors``), unless some
+    class's n depends on discharge: then each event gets tables built with n at its own upstream
+    discharge.
     """
     events = list(cfg.events) if events is None else events
+    kw = dict(options=options, downstream=downstream)
     if not roughness.varies_with_discharge(cfg.roughness.classes):
-        return solve_events(cfg, geom, build_tables(geom, cfg), events, junction_wse)
+        return solve_events(cfg, geom, build_tables(geom, cfg, factors=factors), events, junction_wse, **kw)
     out = {}
     for ev in events:
-        tables = build_tables(geom, cfg, discharge=ev.upstream_discharge(geom.reach_id))
-        out.update(solve_events(cfg, geom, tables, [ev], junction_wse))
+        tables = build_tables(geom, cfg, discharge=ev.upstream_discharge(geom.reach_id), factors=factors)
+        out.update(solve_events(cfg, geom, tables, [ev], junction_wse, **kw))
     return out
 
 

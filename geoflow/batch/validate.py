@@ -10,8 +10,9 @@ Steps, each problem collected rather than raised at once where that makes sense:
    cell_size`` against the DEM);
 2. every reach: its id (path-safe, not too long, unique once made path-safe), its centreline
    inside the DEM and over DEM data, flow changes within its length;
-3. every reach's sections cut and given Manning's n (what the run will use), and stage / rating
-   boundaries checked against the ground of the end sections;
+3. every reach's sections cut and given Manning's n (what the run will use), stage / rating
+   boundaries checked against the ground of the end sections, and observed levels
+   ([calibration] observations) within the sections of the reach they belong to;
 4. no output may overwrite an input (:func:`geoflow.batch.layout.check_inputs_not_outputs`).
 
 Reach-level problems (2-3) are returned by reach; :func:`check` and ``run`` raise them as one
@@ -35,6 +36,7 @@ from ..sections.channel import describe_channel
 from . import reach
 from .inputs import Inputs, open_inputs
 from .layout import check_inputs_not_outputs
+from .marks import check_within_sections
 
 MAX_LISTED = 3      # problems spelt out in the one-line message; the rest are counted
 
@@ -54,10 +56,14 @@ class CheckResult:
                  f"{self.inputs.dem.cell_size:g} m cells)",
                  f"{len(self.geometries) + len(self.problems)} reach(es), {len(cfg.events)} event(s): "
                  + ", ".join(e.name for e in cfg.events)]
+        if cfg.roughness.cases:
+            lines.append(f"roughness cases: {', '.join(cfg.roughness.all_cases())}")
         for rid, g in self.geometries.items():
             flagged = sum(1 for s in g.sections if s.flags)
+            marks = self.inputs.marks.get(rid)
+            observed = f", {marks.wse.size} observed level(s) to calibrate to" if marks is not None else ""
             lines.append(f"  reach {rid}: {g.sections[-1].chainage:.0f} m, {len(g.sections)} sections, "
-                         f"{flagged} flagged")
+                         f"{flagged} flagged{observed}")
             if g.channel:
                 lines.append(f"    {describe_channel(rid, g.channel)}")
             lines.extend(f"    warning: {w}" for w in g.warnings)
@@ -101,6 +107,7 @@ def validate(config: str | Path | Config, others: tuple = ()) -> CheckResult:
             problems[rid] = f"{cfg.path}: " + "; ".join(level)
         else:
             geoms[rid] = geom
+    check_within_sections(cfg, inputs.marks, geoms)
     check_inputs_not_outputs(cfg, tuple(others))
     order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)
     problems = {rid: problems[rid] for rid in order if rid in problems}

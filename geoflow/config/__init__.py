@@ -20,6 +20,7 @@ from .model import (  # noqa: F401
     VERTICAL_UNITS,
     BoundaryConfig,
     BoundarySpec,
+    CalibrationConfig,
     ChannelConfig,
     ChannelReach,
     ChannelShape,
@@ -28,6 +29,7 @@ from .model import (  # noqa: F401
     FlowChange,
     HydraulicsConfig,
     MappingConfig,
+    RatingCurvesConfig,
     ReachesConfig,
     RoughnessClass,
     RoughnessConfig,
@@ -37,6 +39,7 @@ from .model import (  # noqa: F401
 )
 from .read import (
     _read_boundary,
+    _read_bspec,
     _read_events,
     _read_hydraulics,
     _read_mapping,
@@ -47,14 +50,17 @@ from .read import (
     _read_terrain,
     _Reader,
 )
+from .read_analysis import read_calibration, read_rating_curves
 from .read_channel import _read_channel
 
 __all__ = ["load_config", "Config", "RunConfig", "TerrainConfig", "ReachesConfig", "SectionsConfig",
            "RoughnessClass", "RoughnessConfig", "FlowChange", "Event", "BoundarySpec", "BoundaryConfig",
-           "HydraulicsConfig", "MappingConfig", "ChannelConfig", "ChannelReach", "ChannelShape", "REGIMES", "BOUNDARY_TYPES", "FRICTION_SLOPE_METHODS",
+           "HydraulicsConfig", "MappingConfig", "ChannelConfig", "ChannelReach", "ChannelShape",
+           "CalibrationConfig", "RatingCurvesConfig", "REGIMES", "BOUNDARY_TYPES", "FRICTION_SLOPE_METHODS",
            "MAPPING_OUTPUTS", "VERTICAL_UNITS"]
 
-TOP_LEVEL = ("run", "terrain", "reaches", "sections", "roughness", "events", "boundary", "hydraulics", "mapping", "channel")
+TOP_LEVEL = ("run", "terrain", "reaches", "sections", "roughness", "events", "boundary", "hydraulics", "mapping",
+             "channel", "calibration", "rating_curves")
 
 
 def load_config(path: str | Path) -> Config:
@@ -79,6 +85,7 @@ def load_config(path: str | Path) -> Config:
         sections=_read_sections(r, doc), roughness=_read_roughness(r, doc), events=_read_events(r, doc),
         boundary=_read_boundary(r, doc), hydraulics=_read_hydraulics(r, doc), mapping=_read_mapping(r, doc),
         channel=_read_channel(r, doc),
+        calibration=read_calibration(r, doc), rating_curves=read_rating_curves(r, doc, _read_bspec),
     )
     if r.problems:
         raise ConfigError(_summarise(path, r.problems), problems=[f"{path}: {p}" for p in r.problems])

@@ -17,6 +17,8 @@ REGIMES = ("subcritical", "supercritical", "mixed")
 BOUNDARY_TYPES = ("normal_depth", "stage", "critical", "rating", "junction")
 FRICTION_SLOPE_METHODS = ("average_conveyance", "arithmetic", "geometric", "harmonic")
 MAPPING_OUTPUTS = ("wse", "depth", "velocity", "extent", "report")
+ROUGHNESS_CASES = ("low", "high")          # besides "normal", which is always computed
+ADJUST_WORDS = ("channel", "floodplain")   # calibration groups named by a word rather than a class list
 VERTICAL_UNITS = tuple(_UNIT_FACTORS)
 SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 
@@ -74,9 +76,14 @@ class RoughnessConfig:
     layer: str | None = None
     default_n: float | None = None
     table: Path | None = None           # CSV class table (class,n[,n_low,n_high]); TOML classes override it
+    cases: tuple[str, ...] = ()         # roughness cases besides "normal": "low" (n_low), "high" (n_high)
 
     def n_table(self) -> dict[str, float]:
         return {name: c.n for name, c in self.classes.items()}
+
+    def all_cases(self) -> tuple[str, ...]:
+        """"normal" and the configured cases, in the order normal, low, high."""
+        return ("normal",) + tuple(c for c in ROUGHNESS_CASES if c in self.cases)
 
 
 @dataclass(frozen=True)
@@ -181,6 +188,30 @@ class ChannelConfig:
 
 
 @dataclass(frozen=True)
+class CalibrationConfig:
+    """Observed water levels (points with ``event`` and ``wse_m``) and the n multipliers fitted to them.
+
+    ``adjust``: groups sharing one multiplier, each "channel" (the channel class), "floodplain"
+    (every other class no list names) or a tuple of class names. ``bounds``: (lowest, highest)
+    multiplier. ``mark_accuracy``: standard error of an observed level, m (for the covariance).
+    """
+
+    observations: Path
+    layer: str | None = None
+    adjust: tuple = ("channel", "floodplain")
+    bounds: tuple[float, float] = (0.5, 2.0)
+    mark_accuracy: float = 0.03
+
+
+@dataclass(frozen=True)
+class RatingCurvesConfig:
+    """Discharges (m3/s, increasing) solved at every section; optional downstream boundary for them."""
+
+    discharges: tuple[float, ...]
+    downstream: BoundarySpec | None = None
+
+
+@dataclass(frozen=True)
 class Config:
     path: Path
     sha256: str
@@ -194,6 +225,8 @@ class Config:
     hydraulics: HydraulicsConfig = HydraulicsConfig()
     mapping: MappingConfig = MappingConfig()
     channel: ChannelConfig | None = None
+    calibration: CalibrationConfig | None = None
+    rating_curves: RatingCurvesConfig | None = None
 
     def input_files(self) -> dict[str, Path]:
         """Every input file this config names, by its TOML key (the config file itself included).
@@ -205,5 +238,6 @@ class Config:
         files = {"config": self.path, "[terrain] dem": self.terrain.dem,
                  "[reaches] centrelines": self.reaches.centrelines, "[roughness] landcover": self.roughness.landcover,
                  "[roughness] table": self.roughness.table, "[sections] lines": self.sections.lines,
-                 "[channel] survey": self.channel.survey if self.channel is not None else None}
+                 "[channel] survey": self.channel.survey if self.channel is not None else None,
+                 "[calibration] observations": self.calibration and self.calibration.observations}
         return {k: Path(p) for k, p in files.items() if p is not None}

@@ -8,23 +8,27 @@ from .files import (
                     block_raster_writer,
                     cog_options,
                     tiled_gtiff_options,
+                    write_calibration_csv,
                     write_extent_gpkg,
                     write_manifest,
                     write_profile_csv,
                     write_raster,
+                    write_rating_csv,
                     write_sections_gpkg,
 )
 from .tables import (
+                    CALIBRATION_COLUMNS,
                     EXTENT_COLUMNS,
                     INFO_ONLY_FLAGS,
                     PROFILE_COLUMNS,
+                    RATING_COLUMNS,
                     SECTION_COLUMNS,
                     empty_profile,
                     profile_rows,
                     section_rows,
 )
 
-__all__ = ["BlockWriter", "EXTENT_COLUMNS", "INFO_ONLY_FLAGS", "PROFILE_COLUMNS", "SECTION_COLUMNS", "atomic_path",
+__all__ = ["BlockWriter", "CALIBRATION_COLUMNS", "RATING_COLUMNS", "EXTENT_COLUMNS", "INFO_ONLY_FLAGS", "PROFILE_COLUMNS", "SECTION_COLUMNS", "atomic_path",
            "block_raster_writer", "cog_options", "empty_profile", "profile_rows", "section_rows",
-           "tiled_gtiff_options", "write_extent_gpkg", "write_manifest", "write_profile_csv", "write_raster",
+           "tiled_gtiff_options", "write_calibration_csv", "write_rating_csv", "write_extent_gpkg", "write_manifest", "write_profile_csv", "write_raster",
            "write_sections_gpkg"]

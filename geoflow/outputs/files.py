@@ -20,13 +20,14 @@ from rasterio.io import MemoryFile
 
 from ..constants import NODATA
 from ..errors import GeoflowError, OutputError, is_disk_full, write_error
-from .tables import EXTENT_COLUMNS, PROFILE_COLUMNS, SECTION_COLUMNS
+from .tables import CALIBRATION_COLUMNS, EXTENT_COLUMNS, PROFILE_COLUMNS, RATING_COLUMNS, SECTION_COLUMNS
 
 # printf formats per profile column; other float columns use "%.6g".
 _PROFILE_FORMATS = {
     "chainage_m": "%.3f", "discharge_m3s": "%.6g", "bed_m": "%.4f", "wse_m": "%.4f", "energy_m": "%.4f",
     "critical_wse_m": "%.4f", "velocity_ms": "%.4f", "froude": "%.4f", "alpha": "%.4f", "area_m2": "%.4f",
     "top_width_m": "%.4f", "friction_slope": "%.6g", "depth_m": "%.4f", "critical_depth_m": "%.4f",
+    "observed_wse_m": "%.4f", "computed_wse_m": "%.4f", "residual_m": "%.4f", "backwater_length_m": "%.1f",
 }
 
 
@@ -186,8 +187,22 @@ def _ordered(df, required, where: Path):
 
 def write_profile_csv(path, df) -> Path:
     """Write the profile table as CSV with the contract column order (extra columns after)."""
+    return _write_csv(path, df, PROFILE_COLUMNS)
+
+
+def write_calibration_csv(path, df) -> Path:
+    """Write calibration.csv (observed against computed levels) with its contract columns first."""
+    return _write_csv(path, df, CALIBRATION_COLUMNS)
+
+
+def write_rating_csv(path, df) -> Path:
+    """Write rating_curves.csv with its contract columns first."""
+    return _write_csv(path, df, RATING_COLUMNS)
+
+
+def _write_csv(path, df, columns) -> Path:
     path = Path(path)
-    out = _ordered(df, PROFILE_COLUMNS, path)
+    out = _ordered(df, columns, path)
     for col in out.columns:
         if col == "flags":
             out[col] = _join_flags(out[col])

@@ -11,7 +11,7 @@ import pandas as pd
 #: measures; section properties; how the flow splits between channel and floodplains; flags.
 #: All are written in this order (a contract; see CHANGELOG.md for changes).
 PROFILE_COLUMNS = (
-    "reach_id", "event", "section_id", "chainage_m",
+    "reach_id", "event", "roughness_case", "section_id", "chainage_m",
     "discharge_m3s", "regime",
     "bed_m", "wse_m", "depth_m", "energy_m", "critical_wse_m", "critical_depth_m",
     "velocity_ms", "froude", "alpha",
@@ -22,6 +22,8 @@ PROFILE_COLUMNS = (
 #: what each profile.csv column holds (units in the name: _m metres, _m2, _m3s m3/s, _ms m/s)
 PROFILE_MEANING = {
     "reach_id": "reach id (from the centreline layer)", "event": "event name",
+    "roughness_case": "Manning's n used: normal (the class n, calibrated if [calibration] is given), low (n_low) "
+                      "or high (n_high) of every class that gives them",
     "section_id": "cross-section number, 0 at the upstream end",
     "chainage_m": "distance along the centreline from its upstream end, m",
     "discharge_m3s": "discharge through the section, m3/s", "regime": "subcritical, supercritical or critical",
@@ -40,14 +42,36 @@ PROFILE_MEANING = {
 #: sections.gpkg layer "sections": required attributes.
 SECTION_COLUMNS = ("reach_id", "section_id", "chainage_m", "channel_edge_left_m", "channel_edge_right_m", "flags")
 #: inundation.gpkg layer "extent": required attributes.
-EXTENT_COLUMNS = ("reach_id", "event")
+EXTENT_COLUMNS = ("reach_id", "event", "roughness_case")
+#: calibration.csv: one row per observed level (mark).
+CALIBRATION_COLUMNS = ("reach_id", "mark", "event", "chainage_m", "observed_wse_m", "computed_wse_m", "residual_m")
+CALIBRATION_MEANING = {
+    "reach_id": "reach the mark belongs to (nearest centreline)", "mark": "feature number in the observations layer, "
+    "from 0", "event": "event that left the mark", "chainage_m": "where the mark projects onto the centreline, m",
+    "observed_wse_m": "observed level, m", "computed_wse_m": "level computed with the calibrated n, linear in "
+    "chainage between the sections either side, m", "residual_m": "computed minus observed, m",
+}
+#: rating_curves.csv: one row per section and discharge (discharges ascending within a section).
+RATING_COLUMNS = ("reach_id", "section_id", "chainage_m", "discharge_m3s", "wse_m", "depth_m", "area_m2",
+                  "top_width_m", "velocity_ms", "froude", "regime", "backwater_length_m", "flags")
+RATING_MEANING = {
+    "reach_id": "reach id", "section_id": "cross-section number, 0 at the upstream end",
+    "chainage_m": "distance along the centreline from its upstream end, m",
+    "discharge_m3s": "discharge of the rating (upstream end, constant along the reach), m3/s",
+    "wse_m": "water-surface elevation, m", "depth_m": "water-surface elevation minus the lowest ground, m",
+    "area_m2": "flow area, m2", "top_width_m": "water-surface width, m", "velocity_ms": "mean velocity Q/A, m/s",
+    "froude": "Froude number", "regime": "subcritical, supercritical or critical",
+    "backwater_length_m": "0.7 y_n / S0 at the controlling boundary for this discharge (inf where the bed does "
+                          "not fall), m; sections closer to the boundary are flagged boundary_controlled",
+    "flags": "';'-separated flag words: solver flags, boundary_controlled, not_rising",
+}
 
 #: Solver flags that describe the section rather than call for review; kept out of profile.csv.
 INFO_ONLY_FLAGS = frozenset({"several_critical_depths"})
 
 
-def profile_rows(geom, event: str, prof) -> pd.DataFrame:
-    """profile.csv rows (contract columns first) for one reach and event.
+def profile_rows(geom, event: str, prof, case: str = "normal") -> pd.DataFrame:
+    """profile.csv rows (contract columns first) for one reach, event and roughness case.
 
     ``geom``: :class:`geoflow.records.ReachGeometry`; ``prof``: :class:`geoflow.hydraulics.Profile`.
     """
@@ -59,6 +83,7 @@ def profile_rows(geom, event: str, prof) -> pd.DataFrame:
     df = pd.DataFrame({
         "reach_id": [geom.reach_id] * n,
         "event": [event] * n,
+        "roughness_case": [case] * n,
         "section_id": [s.section_id for s in geom.sections],
         "chainage_m": [s.chainage for s in geom.sections],
         "discharge_m3s": prof.discharge,
