@@ -2,9 +2,12 @@
 
 - ``engine``: :func:`map_reach` (in memory) and :func:`write_reach_maps` (block-wise COGs);
 - ``blocks`` / ``join``: the per-block work and the joining of wet areas across block edges;
-- ``mosaic``: per-event maximum where reach rasters overlap.
+- ``mosaic``: per-event maximum where reach rasters overlap;
+- ``confluence``: the receiving reach's side of a junction, which the joining reach leaves dry.
 """
+from .confluence import receiving_side
 from .engine import MapSummary, ReachMap, VelocityInputs, map_reach, write_reach_maps
 from .mosaic import mosaic_max
 
-__all__ = ["MapSummary", "ReachMap", "VelocityInputs", "map_reach", "mosaic_max", "write_reach_maps"]
+__all__ = ["MapSummary", "ReachMap", "VelocityInputs", "map_reach", "mosaic_max", "receiving_side",
+           "write_reach_maps"]

@@ -7,6 +7,7 @@ from .files import (
                     atomic_path,
                     block_raster_writer,
                     cog_options,
+                    read_raster,
                     tiled_gtiff_options,
                     write_extent_gpkg,
                     write_manifest,
@@ -17,14 +18,19 @@ from .files import (
 from .tables import (
                     EXTENT_COLUMNS,
                     INFO_ONLY_FLAGS,
+                    LAYER_MEANING,
                     PROFILE_COLUMNS,
+                    PROFILE_MEANING,
+                    RASTER_MEANING,
                     SECTION_COLUMNS,
                     empty_profile,
                     profile_rows,
+                    raster_metadata,
                     section_rows,
 )
 
-__all__ = ["BlockWriter", "EXTENT_COLUMNS", "INFO_ONLY_FLAGS", "PROFILE_COLUMNS", "SECTION_COLUMNS", "atomic_path",
-           "block_raster_writer", "cog_options", "empty_profile", "profile_rows", "section_rows",
+__all__ = ["BlockWriter", "EXTENT_COLUMNS", "INFO_ONLY_FLAGS", "LAYER_MEANING", "PROFILE_COLUMNS", "PROFILE_MEANING",
+           "RASTER_MEANING", "SECTION_COLUMNS", "atomic_path", "block_raster_writer", "cog_options", "empty_profile",
+           "profile_rows", "raster_metadata", "read_raster", "section_rows",
            "tiled_gtiff_options", "write_extent_gpkg", "write_manifest", "write_profile_csv", "write_raster",
            "write_sections_gpkg"]
