@@ -255,7 +255,7 @@ def _write_reach_report(cfg: Config, inputs, geom) -> list[Path]:
 
 #: the run's index page, beside the reach pages in report/
 INDEX_NAME = "index.html"
-PREVIEW_CELLS = 1400           # longest side of the rasters drawn on a plan map, in cells
+PREVIEW_CELLS = 1000           # longest side of the rasters drawn on a plan map, in cells
 
 
 def _plan_layers(cfg: Config, inputs, geom, events):

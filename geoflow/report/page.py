@@ -47,10 +47,18 @@ class ReachContext:
     index: str | None = None
 
 
+#: flagged sections drawn as full figures; any beyond are drawn together as larger tiles (one image)
+MAX_FLAGGED_FIGURES = 40
+
+
+def _why(words: dict) -> str:
+    return "; ".join(f"{w} ({', '.join(evs)})" if evs else w for w, evs in words.items())
+
+
 def _flag_caption(sid: int, section, words: dict) -> str:
-    why = "; ".join(f"{w} ({', '.join(evs)})" if evs else w for w, evs in words.items())
-    return (f'<b>Section {sid}</b>, chainage {section.chainage:.1f} m: <span class="flagged">{esc(why)}</span>. '
-            "Zoomed to the wet part; dashed: channel edges; thick black: section end; grey strip: Manning's n.")
+    return (f'<b>Section {sid}</b>, chainage {section.chainage:.1f} m: <span class="flagged">{esc(_why(words))}'
+            "</span>. Station from the left end looking downstream (m) against elevation (m), zoomed to the wet "
+            "part; dashed: channel edges; thick black: section end; grey strip: Manning's n.")
 
 
 def _flagged_part(geom, df, events, flagged) -> list[str]:
@@ -60,11 +68,19 @@ def _flagged_part(geom, df, events, flagged) -> list[str]:
     parts.append(f"<p>{len(flagged)} section(s) carry a flag; each is plotted here and shown in red on the map "
                  "and the long profile. The flag words are explained below.</p>")
     by_id = {s.section_id: s for s in geom.sections}
-    for sid, words in flagged.items():
-        s = by_id[sid]
-        fig = section_figure(s, df[df["section_id"] == sid], events)
+    ids = list(flagged)
+    fig = None
+    for sid in ids[:MAX_FLAGGED_FIGURES]:
+        s, words = by_id[sid], flagged[sid]
+        fig = section_figure(s, df[df["section_id"] == sid], events, reuse=fig)     # one Axes for all
         parts.append(figure(fig, f"cross-section {sid} (flagged: {', '.join(words)})", _flag_caption(sid, s, words),
                             ident=f"section-{sid}", cls="flagged-section"))
+    rest = ids[MAX_FLAGGED_FIGURES:]
+    if rest:
+        fig = section_grid_figure([by_id[i] for i in rest], df, events, set(rest), columns=3)
+        cap = "More flagged sections, each zoomed to its wet part: " + "; ".join(
+            f"<b>{sid}</b> ({by_id[sid].chainage:.0f} m): {esc(_why(flagged[sid]))}" for sid in rest)
+        parts.append(figure(fig, "cross-sections " + ", ".join(map(str, rest)), cap, ident="sections-flagged-more"))
     return parts
 
 
@@ -128,9 +144,10 @@ def render_report(reach_id: str, geom, profile_df: pd.DataFrame, events, caution
     parts += _flagged_part(geom, df, events, flagged)
     parts += _glossary_part(flagged)
     parts += ['<h2 id="all-sections">All cross-sections</h2>',
-              "<p>Each tile is zoomed to the wet part of the section (its own scales) and labelled with the section "
-              "number, its chainage and the largest depth (d, the highest event); red frame: flagged.</p>",
-              figure(section_grid_figure(geom, df, events, set(flagged)), "all cross-sections", "", dpi=100)]
+              "<p>Each tile is one section, numbered, zoomed to its wet part (its own scales); red frame and number: "
+              "flagged. Chainages, levels and depths are in the table below.</p>",
+              figure(section_grid_figure(geom.sections, df, events, set(flagged), columns=8 if len(geom.sections) > 48
+                                         else 6), "all cross-sections", "", dpi=90)]
     parts += _facts_part(ctx)
     parts += ['<h2 id="table">Profile table, events side by side</h2>',
               "<p>All columns, with full precision, are in profile.csv.</p>",

@@ -16,7 +16,7 @@ from matplotlib.ticker import MaxNLocator
 
 from .markup import FLAG_COLOUR, event_colour
 
-MAX_LABELS = 30         # section numbers written on a panel (every k-th, plus all flagged ones)
+MAX_LABELS = 20         # section numbers written on a panel (every k-th, plus all flagged ones)
 
 
 @dataclass(frozen=True, eq=False)
@@ -138,9 +138,8 @@ def _lines(ax, geom, layers: PlanLayers, flagged) -> None:
     for k, (s, g) in enumerate(zip(geom.sections, segs)):
         if k % step and s.section_id not in flagged and k != len(segs) - 1:
             continue
-        ax.text(g[0, 0], g[0, 1], str(s.section_id), fontsize=6.5, ha="center", va="center",
-                color=FLAG_COLOUR if s.section_id in flagged else "#111",
-                bbox=dict(facecolor="white", alpha=0.75, lw=0, pad=0.5))
+        ax.text(g[0, 0], g[0, 1], str(s.section_id), fontsize=7, ha="center", va="center", fontweight="bold",
+                color=FLAG_COLOUR if s.section_id in flagged else "#111")
     c = np.asarray(geom.centreline.coords)[:, :2]
     ax.plot(c[:, 0], c[:, 1], color="#0b3c8c", lw=1.4)
     for rid, line in layers.other_lines.items():
