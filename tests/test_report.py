@@ -21,7 +21,7 @@ from geoflow.constants import CAUTION
 from geoflow.flags import describe
 from geoflow.outputs import PROFILE_COLUMNS
 from geoflow.records import CHANNEL, LEFT_FLOODPLAIN, RIGHT_FLOODPLAIN, ReachGeometry, Section
-from geoflow.report import PlanLayers, ReachContext, event_summary, write_report
+from geoflow.report import MapLayers, ReachContext, event_summary, write_report
 from geoflow.report.facts import markers
 from geoflow.report.figures import wet_window
 from geoflow.report.tables import side_by_side
@@ -69,7 +69,7 @@ def make_context(geom) -> ReachContext:
     dem = (np.abs(y - 50)[:, None] / 10 + 10 - 0.002 * x[None, :], (-20.0, -10.0, 420.0, 110.0))
     depth = {e: (np.where(np.abs(y - 50)[:, None] < 8 + 4 * k, 1.0 + k, np.nan) * np.ones((31, 111)),
                  (-20.0, -10.0, 420.0, 110.0)) for k, e in enumerate(EVENTS)}
-    layers = PlanLayers(dem=dem, depth=depth, outlines={e: [box(0, 42 - 4 * k, 400, 58 + 4 * k)]
+    layers = MapLayers(dem=dem, depth=depth, outlines={e: [box(0, 42 - 4 * k, 400, 58 + 4 * k)]
                                                         for k, e in enumerate(EVENTS)})
     facts = [("run name", "t1"), ("program", "geoflow 9.9"), ("config SHA-256", "abc123"), ("CRS", "EPSG:32633"),
              ("DEM cell size (m)", "2"), ("DEM vertical unit", "m")]
@@ -141,7 +141,7 @@ def test_caution_and_reach_id(report):
 
 def test_map_image_and_every_flagged_section_plotted(report):
     _, page = report
-    maps = [i for i in page.imgs if i["alt"].startswith("plan map")]
+    maps = [i for i in page.imgs if i["alt"].startswith("map")]
     assert len(maps) == 1 and png(maps[0]).shape[1] > 800
     for sid in FLAGGED:
         figs = [i for i in page.imgs if i["figure"] == f"section-{sid}"]
@@ -204,7 +204,7 @@ def test_short_reach_and_no_context(tmp_path):
     geom = make_geom(2)
     path = write_report(tmp_path / "r.html", "demo-01", geom, make_profile(geom), EVENTS)
     page = parse(path)
-    assert not any(i["alt"].startswith("plan map") for i in page.imgs)      # no layers: no map
+    assert not any(i["alt"].startswith("map") for i in page.imgs)      # no layers: no map
     assert any(i["alt"] == "long profile" for i in page.imgs)
 
 

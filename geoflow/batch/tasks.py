@@ -247,7 +247,7 @@ def _write_reach_report(cfg: Config, inputs, geom) -> list[Path]:
         run_facts=report.run_facts(cfg, inputs.dem), section_facts=report.section_facts(cfg, geom.reach_id,
                                                                                          len(geom.sections)),
         events_table=report.events_table(cfg, geom.reach_id, prof, events), roughness_table=report.roughness_table(cfg),
-        layers=_plan_layers(cfg, inputs, geom, events), markers=tuple(report.markers(cfg, geom.reach_id, lines)),
+        layers=_map_layers(cfg, inputs, geom, events), markers=tuple(report.markers(cfg, geom.reach_id, lines)),
         index=INDEX_NAME)
     path = cfg.run.output_dir / "report" / f"{safe_name(geom.reach_id)}.html"
     return [report.write_report(path, geom.reach_id, geom, prof, events, caution=CAUTION, context=ctx)]
@@ -255,15 +255,15 @@ def _write_reach_report(cfg: Config, inputs, geom) -> list[Path]:
 
 #: the run's index page, beside the reach pages in report/
 INDEX_NAME = "index.html"
-PREVIEW_CELLS = 1000           # longest side of the rasters drawn on a plan map, in cells
+PREVIEW_CELLS = 1000           # longest side of the rasters drawn on a map, in cells
 
 
-def _plan_layers(cfg: Config, inputs, geom, events):
+def _map_layers(cfg: Config, inputs, geom, events):
     """Plan-map layers of a reach: DEM preview, depth per event, outlines per event, other reaches."""
     import geopandas as gpd
     import shapely
 
-    from ..report import PlanLayers
+    from ..report import MapLayers
     coords = np.concatenate([np.asarray(s.line.coords)[:, :2] for s in geom.sections])
     (x0, y0), (x1, y1) = coords.min(axis=0), coords.max(axis=0)
     pad = 0.03 * max(x1 - x0, y1 - y0)
@@ -279,5 +279,5 @@ def _plan_layers(cfg: Config, inputs, geom, events):
             outlines[ev] = list(gpd.read_file(part, layer="extent").geometry)
     area = shapely.box(*bounds)
     others = {rid: line for rid, line in inputs.reaches if rid != geom.reach_id and line.intersects(area)}
-    return PlanLayers(dem=inputs.dem.read_preview(bounds, PREVIEW_CELLS), depth=depth, outlines=outlines,
+    return MapLayers(dem=inputs.dem.read_preview(bounds, PREVIEW_CELLS), depth=depth, outlines=outlines,
                       other_lines=others)

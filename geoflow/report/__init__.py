@@ -4,9 +4,9 @@ Imported only when a report is written (it pulls in matplotlib).
 """
 from .facts import events_table, flagged_sections, markers, roughness_table, run_facts, section_facts
 from .index import RunPage, write_index
+from .mapview import MapLayers
 from .page import ReachContext, render_report, write_report
-from .planmap import PlanLayers
 from .tables import event_summary
 
-__all__ = ["PlanLayers", "ReachContext", "RunPage", "event_summary", "events_table", "flagged_sections", "markers",
+__all__ = ["MapLayers", "ReachContext", "RunPage", "event_summary", "events_table", "flagged_sections", "markers",
            "render_report", "roughness_table", "run_facts", "section_facts", "write_index", "write_report"]

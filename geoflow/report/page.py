@@ -1,11 +1,11 @@
 """One self-contained HTML page per reach, written for a reviewer.
 
 Needs: the reach geometry, its profile table for all events (profile.csv columns), the events in
-order and, from the run, a :class:`ReachContext` (run facts, boundaries and n per class, plan-map
+order and, from the run, a :class:`ReachContext` (run facts, boundaries and n per class, reach-map
 layers, markers for the long profile). Provides: an HTML file with every figure embedded.
 
 Page, top to bottom: title and links; the engineering caution; the reach's key facts; summary by
-event; plan map (hillshade, depth per event, outlines, numbered sections, flagged ones in red);
+event; map (hillshade, depth per event, outlines, numbered sections, flagged ones in red);
 long profile (confluences, flow changes, structures and flagged sections marked); every flagged
 section plotted, zoomed to its wet part; the flag words with what to do; all sections as a
 compact grid; the run facts (boundaries per event, n per class, options, DEM, version, config
@@ -22,8 +22,8 @@ from ..constants import CAUTION
 from ..outputs import atomic_path
 from . import facts as facts_mod
 from .figures import long_profile_figure, section_figure, section_grid_figure
+from .mapview import MapLayers, map_figure
 from .markup import colour_key, esc, facts_table, figure, page, table
-from .planmap import PlanLayers, plan_map_figure
 from .tables import event_summary, flag_words, glossary, side_by_side
 
 
@@ -33,7 +33,7 @@ class ReachContext:
 
     ``run_facts``: (item, value) pairs (:func:`geoflow.report.facts.run_facts`); ``section_facts``
     likewise for the reach's sections; ``events_table`` / ``roughness_table``: frames of
-    :mod:`geoflow.report.facts`; ``layers``: plan-map layers or None (no map); ``markers``:
+    :mod:`geoflow.report.facts`; ``layers``: reach-map layers or None (no map); ``markers``:
     (chainage m, label) on the long profile: confluences, flow changes and, when the reach has
     them, structures; ``index``: link to the run page (relative), or None.
     """
@@ -42,7 +42,7 @@ class ReachContext:
     section_facts: list = field(default_factory=list)
     events_table: pd.DataFrame | None = None
     roughness_table: pd.DataFrame | None = None
-    layers: PlanLayers | None = None
+    layers: MapLayers | None = None
     markers: tuple = ()
     index: str | None = None
 
@@ -104,11 +104,11 @@ def _facts_part(ctx: ReachContext) -> list[str]:
 def _map_part(geom, ctx: ReachContext, events, flagged) -> list[str]:
     if ctx.layers is None:
         return []
-    fig = plan_map_figure(geom, ctx.layers, events, flagged)
+    fig = map_figure(geom, ctx.layers, events, flagged)
     cap = ("North up, coordinates in the DEM CRS (m). Hillshade of the DEM; blue: depth per event; coloured line: "
            "the event's flood outline; dark blue: this reach's centreline; dashed: other reaches; section lines "
            "numbered (every few, and all flagged ones, in red).")
-    return ['<h2 id="map">Plan map</h2>', figure(fig, f"plan map of reach {geom.reach_id}", cap, ident="plan-map")]
+    return ['<h2 id="map">Map</h2>', figure(fig, f"map of reach {geom.reach_id}", cap, ident="reach-map")]
 
 
 def render_report(reach_id: str, geom, profile_df: pd.DataFrame, events, caution: str = CAUTION,
@@ -124,7 +124,7 @@ def render_report(reach_id: str, geom, profile_df: pd.DataFrame, events, caution
            ("events", ", ".join(events)), ("flagged sections", ", ".join(map(str, flagged)) or "none")]
     key += [(k, v) for k, v in ctx.run_facts if k in ("run name", "program", "config SHA-256")]
     links = [f'<a href="{esc(ctx.index)}">run index</a>'] if ctx.index else []
-    links += [f'<a href="#{a}">{t}</a>' for a, t in (("map", "plan map"), ("long-profile", "long profile"),
+    links += [f'<a href="#{a}">{t}</a>' for a, t in (("map", "map"), ("long-profile", "long profile"),
                                                        ("flagged", "flagged sections"), ("flags", "flag words"),
                                                        ("all-sections", "all sections"), ("facts", "run facts"),
                                                        ("table", "profile table"))]

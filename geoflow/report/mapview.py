@@ -1,6 +1,6 @@
-"""Plan map of a reach: hillshade of the DEM, depth per event, outlines, numbered sections.
+"""Map of a reach: hillshade of the DEM, depth per event, outlines, numbered sections.
 
-Needs a :class:`PlanLayers` (arrays and geometries, already read by the caller) and the reach
+Needs a :class:`MapLayers` (arrays and geometries, already read by the caller) and the reach
 geometry. One panel per event, north up, axes in the DEM CRS (m); flagged sections in red.
 """
 from __future__ import annotations
@@ -20,8 +20,8 @@ MAX_LABELS = 20         # section numbers written on a panel (every k-th, plus a
 
 
 @dataclass(frozen=True, eq=False)
-class PlanLayers:
-    """What the plan map shows besides the reach geometry.
+class MapLayers:
+    """What the map shows besides the reach geometry.
 
     ``dem``: (elevation array m, (left, bottom, right, top)) or None; ``depth``: {event: (array
     m, bounds)}; ``outlines``: {event: [shapely polygons]}; ``other_lines``: {reach id:
@@ -46,7 +46,7 @@ def hillshade(z: np.ndarray, dx: float, dy: float) -> np.ndarray:
     return np.where(bad, np.nan, shade)
 
 
-def _bounds(geom, layers: PlanLayers) -> tuple[float, float, float, float]:
+def _bounds(geom, layers: MapLayers) -> tuple[float, float, float, float]:
     coords = np.concatenate([np.asarray(s.line.coords)[:, :2] for s in geom.sections])
     (x0, y0), (x1, y1) = coords.min(axis=0), coords.max(axis=0)
     pad = 0.03 * max(x1 - x0, y1 - y0)
@@ -75,8 +75,8 @@ def _layout(bounds, n_panels: int):
     return (width, height), rects
 
 
-def plan_map_figure(geom, layers: PlanLayers, events, flagged=()) -> Figure:
-    """The plan map (see module docstring); ``flagged``: section ids drawn in red and always numbered."""
+def map_figure(geom, layers: MapLayers, events, flagged=()) -> Figure:
+    """The map (see module docstring); ``flagged``: section ids drawn in red and always numbered."""
     panels = list(events) or [None]
     bounds = _bounds(geom, layers)
     size, rects = _layout(bounds, len(panels))
@@ -126,7 +126,7 @@ def _outline(ax, polygons, colour: str) -> None:
         ax.add_collection(LineCollection(rings, colors=colour, linewidths=1.0))
 
 
-def _lines(ax, geom, layers: PlanLayers, flagged) -> None:
+def _lines(ax, geom, layers: MapLayers, flagged) -> None:
     """Section lines (numbered), this reach's centreline, other reaches and structures."""
     flagged = set(flagged)
     segs = [np.asarray(s.line.coords)[:, :2] for s in geom.sections]
