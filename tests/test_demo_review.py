@@ -64,7 +64,7 @@ def test_every_flagged_section_is_plotted_and_every_flag_word_explained(demo):
         for w in words:
             entry = describe(w)
             assert entry.meaning != "(not documented)", w
-            assert entry.meaning in page.cells and entry.action in page.cells, (rid, w)
+            assert w in page.cells and entry.meaning in page.cells and entry.action in page.cells, (rid, w)
     index = parse(out / "report" / "index.html")
     for w in {w for r in rows for w in r["flags"].split(";") if w}:
         assert describe(w).meaning in index.cells

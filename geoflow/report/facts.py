@@ -66,7 +66,7 @@ def roughness_table(cfg) -> pd.DataFrame:
             law = "by depth: " + ", ".join(f"{d:g} m → {n:g}" for d, n in c.n_by_depth)
         elif c.n_by_discharge:
             law = "by discharge: " + ", ".join(f"{q:g} m³/s → {n:g}" for q, n in c.n_by_discharge)
-        rows.append({"land-cover class": name + (" (channel)" if name == cfg.roughness.channel_class else ""),
+        rows.append({"land-cover class": name + (" (the channel class)" if name == cfg.roughness.channel_class else ""),
                      "n (s/m^1/3)": f"{c.n:.3f}", "n_low": "" if c.n_low is None else f"{c.n_low:.3f}",
                      "n_high": "" if c.n_high is None else f"{c.n_high:.3f}", "law": law})
     return pd.DataFrame(rows, columns=["land-cover class", "n (s/m^1/3)", "n_low", "n_high", "law"])

@@ -23,7 +23,7 @@ table{border-collapse:collapse;font-size:.85em;margin:.5em 0}
 th,td{border:1px solid #ccc;padding:.2em .5em;text-align:right;vertical-align:top} th{background:#f0f0f0}
 td.text,th.text,.facts td,.facts th,.glossary td,.glossary th,.reaches td,.reaches th{text-align:left}
 .facts th{background:#f7f7f7;font-weight:600;white-space:nowrap}
-img{max-width:100%;display:block;margin:.4em 0}
+th[colspan]{text-align:center;background:#e4ecf5} img{max-width:100%;display:block;margin:.4em 0}
 figure{margin:1em 0} figcaption{font-size:.9em;color:#333}
 .wide{overflow-x:auto} .key span.swatch{display:inline-block;width:1.8em;height:.7em;margin:0 .3em 0 1em}
 .flagged{color:#b00020;font-weight:600} .failed{color:#b00020;font-weight:600} .note{font-size:.9em;color:#444}

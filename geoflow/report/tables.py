@@ -91,6 +91,7 @@ def glossary(words) -> pd.DataFrame:
     rows = []
     for w in words:
         f = describe(w)
-        name = w if w not in RENAMED else f"{w} (now {RENAMED[w]})"
-        rows.append({"flag": name, "kind": f.kind, "meaning": f.meaning, "what to do": f.action})
-    return pd.DataFrame(rows, columns=["flag", "kind", "meaning", "what to do"])
+        rows.append({"flag": w, "kind": f.kind, "meaning": f.meaning, "what to do": f.action,
+                     "current name": RENAMED.get(w, "")})
+    df = pd.DataFrame(rows, columns=["flag", "kind", "meaning", "what to do", "current name"])
+    return df if df["current name"].any() else df.drop(columns="current name")
