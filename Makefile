@@ -33,6 +33,7 @@ bench: $(BIN)/.installed
 	$(BIN)/python benchmarks/bench_mapping.py --size 4000
 	$(BIN)/python benchmarks/bench_batch.py
 	$(BIN)/python benchmarks/bench_cases.py --length 2000
+	$(BIN)/python benchmarks/bench_report.py
 
 clean:
 	rm -rf out .pytest_cache .hypothesis

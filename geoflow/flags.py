@@ -34,8 +34,8 @@ FLAGS: dict[str, Flag] = {f.word: f for f in (
     Flag("no_convergence", "hydraulic", "the energy balance could not be closed within the tolerance; the level "
          "fell back to critical depth (critical_fallback is set too)",
          "check the section geometry and spacing; add sections where the channel changes quickly"),
-    Flag("not_contained", "hydraulic", "the water level is above an end of the section: water spills beyond it "
-         "(vertical walls were added there for the computation)",
+    Flag("not_contained", "hydraulic", "the water level is above an end of the section: water spills beyond it, "
+         "but the computation counts no flow area past the section's ends",
          "widen the section ([sections] width or rise) unless the spill is meant to be ignored"),
     Flag("jump_upstream", "hydraulic", "a hydraulic jump lies between this section and the next one upstream "
          "(mixed regime)", "check the jump location with closer sections; expect local scour and turbulence"),
@@ -74,6 +74,13 @@ FLAGS: dict[str, Flag] = {f.word: f for f in (
 )}
 
 
+#: earlier names of flag words, still read (results written before the rename, the solver until it
+#: emits the new name): old word -> current word
+RENAMED = {"critical_assumed": "critical_fallback"}   # the word before 0.2.0 (old part files, old manifests)
+
+
 def describe(word: str) -> Flag:
-    """The entry of a flag word (an unknown word is described as such, never an error)."""
+    """The entry of a flag word (an earlier name is described under its current entry; an unknown
+    word is described as such, never an error)."""
+    word = RENAMED.get(word, word)
     return FLAGS.get(word, Flag(word, "info", "(not documented)", "report it: every flag should be documented"))

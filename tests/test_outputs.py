@@ -184,3 +184,38 @@ def test_every_flag_word_the_code_can_emit_is_documented():
         emitted |= set(re.findall(r'f(?:\.append\(|\s*\+=\s*\[)"([a-z_]+)"', text))
     assert emitted, "the scan found no flag words"
     assert emitted <= set(FLAGS), sorted(emitted - set(FLAGS))
+
+
+def test_raster_metadata_survives_the_cog_copy(tmp_path):
+    """Units, band description and the caution are GDAL metadata read back with rasterio (reference
+    reader), for both writers: in memory (write_raster) and block-wise (block_raster_writer)."""
+    from rasterio.windows import Window
+
+    from geoflow.constants import CAUTION
+    meta = outputs.raster_metadata("velocity", CAUTION, reach_id="r1", event="q100")
+    a = write_raster(tmp_path / "v.tif", np.ones((300, 280)), TRANSFORM, CRS_UTM, meta=meta)
+    with outputs.block_raster_writer(tmp_path / "b.tif", 280, 300, TRANSFORM, CRS_UTM, meta=meta) as w:
+        w(np.ones((300, 280)), Window(0, 0, 280, 300))
+    for path in (a, tmp_path / "b.tif"):
+        with rasterio.open(path) as ds:
+            assert ds.tags(ns="IMAGE_STRUCTURE").get("LAYOUT") == "COG"
+            tags = ds.tags()
+            assert tags["units"] == "m/s" and tags["caution"] == CAUTION
+            assert tags["reach_id"] == "r1" and tags["event"] == "q100"
+            assert ds.units == ("m/s",) and ds.tags(1)["units"] == "m/s"
+            assert ds.descriptions[0].startswith("depth-averaged velocity") and "(m/s)" in ds.descriptions[0]
+
+
+def test_geopackage_layers_carry_a_description_and_the_caution(tmp_path):
+    """The layer description is the GeoPackage standard's gpkg_contents.description (read with
+    sqlite3, the reference reader); the caution is layer metadata (read with pyogrio)."""
+    import sqlite3
+
+    from geoflow.constants import CAUTION
+    gdf = gpd.GeoDataFrame({"reach_id": ["r1"], "event": ["q"], "roughness_case": ["normal"], "area_m2": [1.0]},
+                           geometry=[Polygon([(0, 0), (1, 0), (1, 1)])], crs=CRS_UTM.to_wkt())
+    path = write_extent_gpkg(tmp_path / "inundation.gpkg", gdf)
+    with sqlite3.connect(path) as db:
+        (desc,) = db.execute("SELECT description FROM gpkg_contents WHERE table_name = 'extent'").fetchone()
+    assert desc == outputs.LAYER_MEANING["extent"] and "m2" in desc
+    assert pyogrio.read_info(path, layer="extent")["layer_metadata"]["caution"] == CAUTION

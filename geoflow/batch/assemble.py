@@ -5,6 +5,7 @@ give byte-identical tables whichever engine computed the reaches and in whatever
 """
 from __future__ import annotations
 
+import os
 import time
 
 import geopandas as gpd
@@ -14,13 +15,14 @@ import rasterio
 import shapely
 from shapely.geometry import box
 
-from .. import outputs
+from .. import __version__, outputs
 from ..config import Config
+from ..constants import CAUTION
 from ..mapping import mosaic_max
 from ..naming import safe_name
 from .layout import MANIFEST_NAME, relative_name, unrecorded_files
 from .manifest import Manifest, calibration_entry, part_paths, unit_key
-from .tasks import read_profile_parts
+from .tasks import INDEX_NAME, read_profile_parts
 
 
 def finish(cfg: Config, inputs, man: Manifest, result) -> None:
@@ -42,13 +44,18 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     sections = _sections(cfg, order, profile, crs)
     result.paths["sections"] = outputs.write_sections_gpkg(out / "sections.gpkg", sections)
     man.data["sections_crossing_other_reaches"] = cross_reach_crossings(sections)
-    if "extent" in cfg.mapping.outputs:
-        result.paths["extent"] = outputs.write_extent_gpkg(out / "inundation.gpkg", _extents(cfg, done, crs))
+    extents = _extents(cfg, done, crs) if "extent" in cfg.mapping.outputs else None
+    if extents is not None:
+        result.paths["extent"] = outputs.write_extent_gpkg(out / "inundation.gpkg", extents)
     result.paths.update(_mosaics(cfg, done))
     result.paths.update(_spreads(cfg, done))
     result.paths.update(_reach_tables(cfg, order, man))
     if cfg.calibration is not None:
         man.data["calibration"] = calibration_entry(cfg, man.data["reaches"])
+    if "report" in cfg.mapping.outputs:
+        t0 = time.perf_counter()
+        result.paths["report_index"] = _write_index(cfg, inputs, man, result, profile, sections, extents)
+        man.data["report_index_s"] = round(time.perf_counter() - t0, 3)
     man.data["files"] = sorted(relative_name(out, f) for f in result.paths.values())
     recorded = man.recorded_files() | {MANIFEST_NAME}
     man.data["stale_files"] = unrecorded_files(out, recorded)
@@ -60,6 +67,26 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     result.profile = profile
     result.reaches = {rid: man.data["reaches"].get(rid, {"status": "failed", "error": "not computed"})
                       for rid in order}
+
+
+def _write_index(cfg: Config, inputs, man: Manifest, result, profile, sections, extents):
+    """report/index.html: every reach and event with status, flags and links (see geoflow.report.index)."""
+    from .. import report
+    out = cfg.run.output_dir
+    rdir = out / "report"
+    pages = {rid: f"{safe_name(rid)}.html" for rid in man.data["reaches"] if (rdir / f"{safe_name(rid)}.html").is_file()}
+    outlines = {} if extents is None else {(str(r), str(e)): g for r, e, g in
+                                           zip(extents["reach_id"], extents["event"], extents.geometry)}
+    lines = {(str(r), int(s)): g for r, s, g in zip(sections["reach_id"], sections["section_id"], sections.geometry)}
+    files = [(relative_name(out, p), os.path.relpath(p, rdir)) for k, p in sorted(result.paths.items())
+             if k != "report_index"] + [(MANIFEST_NAME, os.path.relpath(out / MANIFEST_NAME, rdir))]
+    order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)
+    run = report.RunPage(run_facts=report.run_facts(cfg, inputs.dem), events=[e.name for e in cfg.events],
+                         reaches={rid: man.data["reaches"].get(rid, {"status": "failed"}) for rid in order},
+                         units=man.data["units"], profile=profile, outlines=outlines,
+                         centrelines=dict(inputs.reaches), section_lines=lines, pages=pages, files=files,
+                         crossings=list(man.data.get("sections_crossing_other_reaches", [])))
+    return report.write_index(rdir / INDEX_NAME, run, caution=CAUTION)
 
 
 def cross_reach_crossings(sections: gpd.GeoDataFrame) -> list[str]:
@@ -95,7 +122,10 @@ def _mosaics(cfg: Config, done: dict[str, list[str]]) -> dict:
             tifs = _overlapping([t for t in tifs if t.is_file()])
             if len(tifs) >= 2:
                 path = cfg.run.output_dir / "mosaic" / f"{safe_name(ev.name)}_max_{kind}.tif"
-                written[f"mosaic_{ev.name}_{kind}"] = mosaic_max(tifs, path)
+                meta = outputs.raster_metadata(kind, CAUTION, event=ev.name, run=cfg.run.name,
+                                               geoflow_version=__version__, config_sha256=cfg.sha256,
+                                               combined="largest value of the overlapping reach rasters")
+                written[f"mosaic_{ev.name}_{kind}"] = mosaic_max(tifs, path, meta=meta)
     return written
 
 

@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .. import outputs
+from .. import __version__, outputs
 from ..config import Config, load_config
 from ..constants import CAUTION
 from ..errors import ConfigError, GeoflowError, HydraulicsError, InputDataError, is_disk_full, nearly_full, write_error
@@ -124,8 +124,9 @@ def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float)
         info["files"].append(relative_name(cfg.run.output_dir, outputs.write_rating_csv(
             path, ratings.rating_rows(cfg, geom, factors))))
         info["timings_s"]["rating_curves"] = time.perf_counter() - t3
-    info["files"] += [relative_name(cfg.run.output_dir, f) for f in _write_reach_report(cfg, geom)]
-    info["timings_s"].update(sections=t1 - t0, total=time.perf_counter() - t0)
+    t4 = time.perf_counter()
+    info["files"] += [relative_name(cfg.run.output_dir, f) for f in _write_reach_report(cfg, inputs, geom)]
+    info["timings_s"].update(sections=t1 - t0, report=time.perf_counter() - t4, total=time.perf_counter() - t0)
     failed = [e for e, u in info["events"].items() if u["status"] != "complete"]
     info["status"] = "failed" if failed else "complete"
     info["error"] = "; ".join(info["events"][e]["error"] for e in failed) or None
@@ -191,17 +192,20 @@ def _compute_event(cfg: Config, inputs, geom, profs: dict, ev, factors: dict) ->
 
 
 def _write_maps(cfg: Config, inputs, geom, event: str, profs: dict, factors: dict) -> list[Path]:
-    """Rasters (block-wise COGs) of every roughness case, the extent part and the WSE spread part.
+    """Rasters (block-wise COGs, with their units and the caution as metadata) of every roughness
+    case, the outline part (one multipolygon per reach, event and case) and the WSE spread part.
 
     The normal case keeps the names <event>_<kind>.tif (and is the only one with velocity); the
     other cases write <event>.<case>_wse.tif and <event>.<case>_depth.tif.
     """
     import geopandas as gpd
+    import shapely
 
     from ..mapping import write_reach_maps, write_wse_spread
     parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(event))
     rdir = cfg.run.output_dir / "rasters" / safe_name(geom.reach_id)
     written, extents, wse_paths = [], [], {}
+    exclude = _receiving_side(cfg, inputs, geom)
     for case, prof in profs.items():
         kinds = [k for k in ("wse", "depth", "velocity") if k in cfg.mapping.outputs
                  and (case == "normal" or k != "velocity")]
@@ -209,16 +213,24 @@ def _write_maps(cfg: Config, inputs, geom, event: str, profs: dict, factors: dic
             continue
         stem = safe_name(event) if case == "normal" else f"{safe_name(event)}.{case}"
         paths = {k: rdir / f"{stem}_{k}.tif" for k in kinds}
-        velocity = _velocity_inputs(cfg, inputs, prof, factors) if "velocity" in kinds else None
+        velocity = _velocity_inputs(cfg, inputs, geom, prof, factors) if "velocity" in kinds else None
+        meta = {k: outputs.raster_metadata(k, CAUTION, reach_id=geom.reach_id, event=event, run=cfg.run.name,
+                                           geoflow_version=__version__, config_sha256=cfg.sha256,
+                                           roughness_case=case)
+                for k in kinds}
         m = write_reach_maps(inputs.dem, geom, np.asarray(prof.wse), paths, cell_size=cfg.mapping.cell_size,
-                             velocity=velocity)
+                             velocity=velocity, exclude=exclude, meta=meta)
         written += list(paths.values())
         wse_paths[case] = paths.get("wse")
-        extents.append(gpd.GeoDataFrame({"reach_id": geom.reach_id, "event": event, "roughness_case": case,
-                                         "area_m2": [p.area for p in m.extent]}, geometry=list(m.extent),
-                                        crs=inputs.dem.crs.to_wkt()))
-    if extents:
-        ext = gpd.GeoDataFrame(pd.concat(extents, ignore_index=True), geometry="geometry", crs=inputs.dem.crs.to_wkt())
+        if m.extent:
+            outline = shapely.multipolygons(m.extent)
+            extents.append(gpd.GeoDataFrame({"reach_id": [geom.reach_id], "event": [event], "roughness_case": [case],
+                                             "area_m2": [outline.area]}, geometry=[outline],
+                                            crs=inputs.dem.crs.to_wkt()))
+    if "extent" in cfg.mapping.outputs or extents:
+        ext = (gpd.GeoDataFrame(pd.concat(extents, ignore_index=True), geometry="geometry", crs=inputs.dem.crs.to_wkt())
+               if extents else gpd.GeoDataFrame({"reach_id": [], "event": [], "roughness_case": [], "area_m2": []},
+                                                geometry=[], crs=inputs.dem.crs.to_wkt()))
         written.append(outputs.write_extent_gpkg(parts["extent"], ext))
     if wse_paths.get("low") is not None and wse_paths.get("high") is not None:
         written.append(write_wse_spread(geom, profs["low"].wse, profs["high"].wse, wse_paths["low"],
@@ -226,17 +238,33 @@ def _write_maps(cfg: Config, inputs, geom, event: str, profs: dict, factors: dic
     return written
 
 
-def _velocity_inputs(cfg: Config, inputs, prof, factors: dict | None = None):
-    """Velocity raster inputs: the profile's friction slope and each land-cover polygon's base n
-    (times its class's calibration factor)."""
+def _receiving_side(cfg: Config, inputs, geom):
+    """For a reach whose downstream boundary is a junction: the side of the receiving reach,
+    which this reach's map leaves to that reach (see geoflow.mapping.confluence); else None."""
+    down, _ = cfg.boundary.for_reach(geom.reach_id)
+    lines = dict(inputs.reaches)
+    if down.type != "junction" or down.reach not in lines:
+        return None
+    from ..mapping import receiving_side
+    coords = np.concatenate([np.asarray(s.line.coords)[:, :2] for s in geom.sections])
+    bounds = (*coords.min(axis=0), *coords.max(axis=0))
+    step = cfg.mapping.cell_size or inputs.dem.cell_size
+    return receiving_side(geom.centreline, lines[down.reach], bounds, step)
+
+
+def _velocity_inputs(cfg: Config, inputs, geom, prof, factors: dict | None = None):
+    """Velocity raster inputs: per section the slope under which the depth strips carry the section's
+    discharge (geoflow.mapping.strips), and each land-cover polygon's base n (times its class's
+    calibration factor)."""
     from ..mapping import VelocityInputs
+    from ..mapping.strips import strip_slope
     table = cfg.roughness.n_table()
     factors = factors or {}
     gap_n = None if cfg.roughness.default_n is None else cfg.roughness.default_n * factors.get(GAP_CLASS, 1.0)
     fallback = np.nan if cfg.roughness.default_n is None else cfg.roughness.default_n
     n = np.array([table.get(str(c), fallback) * factors.get(str(c), 1.0) for c in inputs.cover.classes], dtype=float)
-    return VelocityInputs(friction_slope=np.asarray(prof.friction_slope, dtype=float),
-                          landcover=(np.asarray(inputs.cover.geometries), n), default_n=gap_n)
+    slope = strip_slope(geom.sections, np.asarray(prof.wse, dtype=float), np.asarray(prof.discharge, dtype=float))
+    return VelocityInputs(friction_slope=slope, landcover=(np.asarray(inputs.cover.geometries), n), default_n=gap_n)
 
 
 def _write_sections_part(cfg: Config, inputs: Inputs, geom) -> Path:
@@ -262,7 +290,9 @@ def read_profile_parts(cfg: Config, reach_id: str, events: list[str] | None = No
     return pd.concat(frames, ignore_index=True) if frames else None
 
 
-def _write_reach_report(cfg: Config, geom) -> list[Path]:
+def _write_reach_report(cfg: Config, inputs, geom) -> list[Path]:
+    """The reach's HTML page, from its profile parts, the rasters and outlines just written, and a
+    DEM window (all read here, at the edge; the report itself reads nothing)."""
     if "report" not in cfg.mapping.outputs:
         return []
     prof = read_profile_parts(cfg, geom.reach_id)
@@ -272,5 +302,45 @@ def _write_reach_report(cfg: Config, geom) -> list[Path]:
     from .. import report
     prof["flags"] = prof["flags"].fillna("")
     events = [e.name for e in cfg.events if e.name in set(prof["event"])]
+    lines = dict(inputs.reaches)
+    ctx = report.ReachContext(
+        run_facts=report.run_facts(cfg, inputs.dem), section_facts=report.section_facts(cfg, geom.reach_id,
+                                                                                         len(geom.sections)),
+        events_table=report.events_table(cfg, geom.reach_id, prof, events), roughness_table=report.roughness_table(cfg),
+        layers=_map_layers(cfg, inputs, geom, events), markers=tuple(report.markers(cfg, geom.reach_id, lines)),
+        index=INDEX_NAME)
     path = cfg.run.output_dir / "report" / f"{safe_name(geom.reach_id)}.html"
-    return [report.write_report(path, geom.reach_id, geom, prof, events, caution=CAUTION)]
+    return [report.write_report(path, geom.reach_id, geom, prof, events, caution=CAUTION, context=ctx)]
+
+
+#: the run's index page, beside the reach pages in report/
+INDEX_NAME = "index.html"
+PREVIEW_CELLS = 1000           # longest side of the rasters drawn on a map, in cells
+
+
+def _map_layers(cfg: Config, inputs, geom, events):
+    """Plan-map layers of a reach: DEM preview, depth per event, outlines per event, other reaches."""
+    import geopandas as gpd
+    import shapely
+
+    from ..report import MapLayers
+    coords = np.concatenate([np.asarray(s.line.coords)[:, :2] for s in geom.sections])
+    (x0, y0), (x1, y1) = coords.min(axis=0), coords.max(axis=0)
+    pad = 0.03 * max(x1 - x0, y1 - y0)
+    bounds = (x0 - pad, y0 - pad, x1 + pad, y1 + pad)
+    depth, outlines = {}, {}
+    for ev in events:
+        tif = cfg.run.output_dir / "rasters" / safe_name(geom.reach_id) / f"{safe_name(ev)}_depth.tif"
+        if tif.is_file():
+            arr, box, _ = outputs.read_raster(tif, PREVIEW_CELLS)
+            depth[ev] = (arr, box)
+        part = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(ev))["extent"]
+        if part.is_file():
+            ext = gpd.read_file(part, layer="extent")
+            if "roughness_case" in ext:
+                ext = ext[ext["roughness_case"] == "normal"]
+            outlines[ev] = list(ext.geometry)
+    area = shapely.box(*bounds)
+    others = {rid: line for rid, line in inputs.reaches if rid != geom.reach_id and line.intersects(area)}
+    return MapLayers(dem=inputs.dem.read_preview(bounds, PREVIEW_CELLS), depth=depth, outlines=outlines,
+                      other_lines=others)

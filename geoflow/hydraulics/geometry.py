@@ -1,14 +1,14 @@
 """Cross-section property tables: area, wetted perimeter, top width and conveyance.
 
 A section is a ground profile (station, elevation) with Manning's n and a part code
-(0 left overbank, 1 channel, 2 right overbank) per segment between consecutive points.
+(0 left floodplain, 1 channel, 2 right floodplain) per segment between consecutive points.
 Ground is linear between points; a partly wet segment is clipped exactly at the water line.
 
 Subdivision rule (vertical division lines, which carry no wetted perimeter):
 - the channel part is one subdivision; where n varies inside it the composite n is
   Horton/Einstein's n_c = [sum P_i n_i^1.5 / P]^(2/3) over the wetted perimeter under water
   (Chow 1959, Open-Channel Hydraulics, ch. 6, from memory);
-- each overbank is split at every change of n (so its composite n is its own n).
+- each floodplain is split at every change of n (so its composite n is its own n).
 Conveyance K_i = (1/n_i) A_i R_i^(2/3) (Manning, SI); kinetic-energy and momentum coefficients
 alpha = A_t^2 sum(K_i^3/A_i^2) / K_t^3 and beta = A_t sum(K_i^2/A_i) / K_t^2 (Chow 1959, ch. 2
 and 6, from memory).
@@ -61,7 +61,7 @@ class SectionProperties:
     sub_perimeter: np.ndarray    # (k, S) m
     sub_n: np.ndarray            # (k, S) composite n (nan when dry)
     sub_conveyance: np.ndarray   # (k, S) m3/s
-    part_area: np.ndarray        # (k, 3) m2, left overbank / channel / right overbank
+    part_area: np.ndarray        # (k, 3) m2, left floodplain / channel / right floodplain
     part_conveyance: np.ndarray  # (k, 3) m3/s
     not_contained: np.ndarray    # (k,) bool, water above an end of the section
 
@@ -138,8 +138,8 @@ def _checked_arrays(station, elevation, n, part, name):
     if not np.all(np.isfinite(nn) & (nn > 0)):
         raise GeometryError(f"section {name!r}: Manning's n must be finite and > 0 on every segment")
     if not np.all((pp == 0) | (pp == 1) | (pp == 2)):
-        raise GeometryError(f"section {name!r}: part codes must be 0 (left overbank), "
-                            "1 (channel) or 2 (right overbank)")
+        raise GeometryError(f"section {name!r}: part codes must be 0 (left floodplain), "
+                            "1 (channel) or 2 (right floodplain)")
     return x, z, nn, pp.astype(np.int8)
 
 
@@ -156,7 +156,7 @@ def _checked_n_depth(n_depth, nseg, name):
 
 
 def _subdivisions(n, part, n_depth):
-    """Subdivision index per segment: break where the part changes, and inside an overbank
+    """Subdivision index per segment: break where the part changes, and inside a floodplain
     where n (or its depth law) changes; the channel part stays one subdivision."""
     n_cols = n[None, :] if n_depth is None else np.vstack([n[None, :], n_depth[1]])
     n_change = np.any(n_cols[:, 1:] != n_cols[:, :-1], axis=0)

@@ -36,7 +36,7 @@ class LevelTable:
     sentinel first); ``coef`` (8, L+1, S) holds, per subdivision, the values from the right at
     each start and slopes: planes A, T, t, N, v, P, p, M (the first five give the flow terms).
     ``to_part`` (S, 3) maps
-    subdivisions to left overbank / channel / right overbank."""
+    subdivisions to left floodplain / channel / right floodplain."""
 
     start: np.ndarray
     coef: np.ndarray

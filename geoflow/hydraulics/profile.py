@@ -12,7 +12,7 @@ from geoflow.hydraulics.step import CRITICAL, NO_CONVERGENCE
 @dataclass(frozen=True, eq=False)
 class Profile:
     """A steady water-surface profile; every array has one value per section, ordered upstream
-    -> downstream (part arrays are (N, 3): left overbank, channel, right overbank). SI units.
+    -> downstream (part arrays are (N, 3): left floodplain, channel, right floodplain). SI units.
     Froude number: mean velocity over sqrt(g A / T). ``specific_force``: beta Q^2/(gA) + A ybar."""
 
     wse: np.ndarray

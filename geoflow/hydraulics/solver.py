@@ -106,7 +106,7 @@ def _checked(tables, lengths, discharges):
     ln = np.asarray(lengths, dtype=float).reshape(-1, 3) if n > 1 else np.zeros((0, 3))
     if ln.shape != (n - 1, 3) or not np.all(np.isfinite(ln) & (ln >= 0)):
         raise HydraulicsError(f"lengths must be ({n - 1}, 3) finite values >= 0 "
-                              "(left overbank, channel, right overbank)")
+                              "(left floodplain, channel, right floodplain)")
     return q, ln
 
 
@@ -150,8 +150,8 @@ def solve_events(tables, lengths, discharges, downstream: Boundary | None = None
                  upstream: Boundary | None = None, options: SolverOptions | None = None):
     """Solve E events at once on the same sections (vectorised across events).
 
-    ``tables``: N SectionTable, upstream -> downstream; ``lengths`` (N-1, 3) m (left overbank,
-    channel, right overbank); ``discharges`` (E, N) m3/s. ``downstream`` is required for the
+    ``tables``: N SectionTable, upstream -> downstream; ``lengths`` (N-1, 3) m (left floodplain,
+    channel, right floodplain); ``discharges`` (E, N) m3/s. ``downstream`` is required for the
     subcritical and mixed regimes; ``upstream`` is used by the supercritical regime (critical
     depth when None) and, in the mixed regime, starts a supercritical run at the first section
     when its WSE is below critical. Stage boundaries may give one WSE per event.

@@ -189,9 +189,12 @@ def compute_block(ctx, grid: Grid, win: Window) -> BlockData | None:
     with np.errstate(invalid="ignore"):
         depth = vals[0] - ground
         wet = np.isfinite(depth) & (depth > 0)
+    transform = grid.transform @ Affine.translation(win.col_off, win.row_off)
+    if ctx.exclude is not None and shapely.intersects(ctx.exclude, shapely.box(*box)):
+        wet &= rasterize([(ctx.exclude, 1)], out_shape=shape_rc, transform=transform, fill=0,
+                         dtype="uint8") == 0
     depth[~wet] = np.nan
     labels, count = ndimage.label(wet, structure=EIGHT)
-    transform = grid.transform @ Affine.translation(win.col_off, win.row_off)
     seeded = np.zeros(0, dtype=np.int32)
     line = shapely.clip_by_rect(ctx.centreline, box[0] - ctx.cell, box[1] - ctx.cell,
                                 box[2] + ctx.cell, box[3] + ctx.cell)

@@ -168,18 +168,21 @@ class _Context:
     centreline: object
     cell: float
     velocity: VelocityInputs | None
+    exclude: object = None          # (Multi)Polygon whose cells this reach never maps, or None
 
 
 def map_reach(dem, geom, wse_at_section, cell_size: float | None = None, pad: int = PAD_CELLS,
-              block: int | None = None, velocity: VelocityInputs | None = None) -> ReachMap:
+              block: int | None = None, velocity: VelocityInputs | None = None, exclude=None) -> ReachMap:
     """Map the water surface of one reach onto the DEM grid, in memory (see module docstring).
 
     dem: geoflow.terrain.Dem; geom: ReachGeometry; wse_at_section: (N,) m, one per section;
     cell_size: output cell size in DEM CRS units (None = DEM cell size; otherwise an integer
     multiple of it); pad: cells added around the section bounds; block: block size in cells
-    (None = the whole window as one block); velocity: optional :class:`VelocityInputs`.
+    (None = the whole window as one block); velocity: optional :class:`VelocityInputs`;
+    exclude: optional (Multi)Polygon (DEM CRS) whose cells stay dry in this reach's map, e.g.
+    :func:`geoflow.mapping.receiving_side` for a reach that ends in a junction.
     """
-    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity)
+    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity, exclude)
     kinds = ("wse", "depth") + (("velocity",) if velocity is not None else ())
     arrays = {k: np.full(grid.shape, np.nan, dtype=np.float32) for k in kinds}
     res = run_blocks(ctx, grid, _Sink({k: _ArrayWindows(a) for k, a in arrays.items()}))
@@ -220,7 +223,8 @@ class _Sink:
 
 
 def write_reach_maps(dem, geom, wse_at_section, paths: dict, cell_size: float | None = None, block: int = 2048,
-                     velocity: VelocityInputs | None = None, pad: int = PAD_CELLS) -> MapSummary:
+                     velocity: VelocityInputs | None = None, pad: int = PAD_CELLS, exclude=None,
+                     meta: dict | None = None) -> MapSummary:
     """Map one reach block by block and write its rasters as Cloud-Optimised GeoTIFFs.
 
     paths: {"wse" | "depth" | "velocity": output path}, any subset; each raster is float32
@@ -228,16 +232,18 @@ def write_reach_maps(dem, geom, wse_at_section, paths: dict, cell_size: float | 
     written block-wise into a temporary tiled GeoTIFF and published as a COG with overviews
     atomically (:func:`geoflow.outputs.block_raster_writer`). Only one block of ``block``
     x ``block`` cells is in memory at a time (plus GDAL's cache, set to
-    ``GDAL_CACHE_MB``). Same cells as :func:`map_reach` for any block size.
+    ``GDAL_CACHE_MB``). Same cells as :func:`map_reach` for any block size. ``exclude`` as in
+    :func:`map_reach`; ``meta``: {kind: (tags, band description, unit)} written into each file.
     Returns a :class:`MapSummary`.
     """
     paths = _check_paths(geom, paths, velocity)
-    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity)
+    meta = meta or {}
+    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity, exclude)
     rows, cols = grid.shape
     tile = 512 if min(rows, cols) >= 4096 else 256
     with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB * 1024 * 1024), contextlib.ExitStack() as stack:
         writers = {k: stack.enter_context(outputs.block_raster_writer(p, cols, rows, grid.transform, dem.crs,
-                                                                      blocksize=tile))
+                                                                      blocksize=tile, meta=meta.get(k)))
                    for k, p in paths.items()}
         res = run_blocks(ctx, grid, _Sink(writers))
     return MapSummary(transform=grid.transform, crs=dem.crs, shape=grid.shape, extent=res.extent,
@@ -260,7 +266,7 @@ def _check_paths(geom, paths, velocity) -> dict:
     return out
 
 
-def _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity) -> tuple[_Context, Grid]:
+def _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity, exclude=None) -> tuple[_Context, Grid]:
     """Validated inputs -> engine context and output grid."""
     wse = _check_inputs(geom, wse_at_section)
     values = wse[None, :]
@@ -282,7 +288,8 @@ def _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity) -> tupl
     grid = Grid(dem_window=win, transform=transform, shape=shape_rc, factor=factor, block=size)
     centreline = shapely.force_2d(geom.centreline)
     ctx = _Context(dem=dem, surface=Surface(geom.sections, values, centreline), centreline=centreline,
-                   cell=float(max(abs(transform.a), abs(transform.e))), velocity=velocity)
+                   cell=float(max(abs(transform.a), abs(transform.e))), velocity=velocity,
+                   exclude=None if exclude is None or exclude.is_empty else exclude)
     return ctx, grid
 
 

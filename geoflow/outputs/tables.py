@@ -7,6 +7,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from ..constants import MIN_OUTLINE_PART_CELLS
+
 #: profile.csv columns, grouped by meaning: where; the flow; levels and depths; velocity and its
 #: measures; section properties; how the flow splits between channel and floodplains; flags.
 #: All are written in this order (a contract; see CHANGELOG.md for changes).
@@ -65,6 +67,33 @@ RATING_MEANING = {
                           "not fall), m; sections closer to the boundary are flagged boundary_controlled",
     "flags": "';'-separated flag words: solver flags, boundary_controlled, not_rising",
 }
+
+#: What each raster kind holds: band description and unit, carried in the file's own metadata.
+RASTER_MEANING = {
+    "wse": ("water-surface elevation", "m"),
+    "depth": ("water depth above the ground (water-surface elevation minus DEM)", "m"),
+    "velocity": ("depth-averaged velocity estimate, Manning strip method (see README)", "m/s"),
+}
+#: What each GeoPackage layer holds: stored as the layer's description (gpkg_contents) and metadata.
+LAYER_MEANING = {
+    "sections": "cross-section lines of geoflow, one per section; attributes: reach_id, section_id, chainage_m "
+                "(m from the upstream end), channel_edge_left_m / channel_edge_right_m (m from the left end, "
+                "looking downstream), bed_m (m), Manning's n per part (s/m^(1/3)), flags, wse_<event>_m (m)",
+    "extent": "flood outlines of geoflow, one multipolygon per reach and event (parts smaller than "
+              f"{MIN_OUTLINE_PART_CELLS} output cells left out); attributes reach_id, event, area_m2 (m2)",
+}
+
+
+def raster_metadata(kind: str, caution: str, **facts) -> tuple[dict, str, str]:
+    """(dataset tags, band description, band unit) of a raster of ``kind`` (``RASTER_MEANING``).
+
+    The tags carry the quantity, its unit, the caution and any further ``facts`` (reach id,
+    event, program version ...), so a file passed on alone still says what it holds.
+    """
+    what, unit = RASTER_MEANING[kind]
+    tags = {"quantity": what, "units": unit, "caution": caution, "producer": "geoflow"}
+    tags.update({k: str(v) for k, v in facts.items() if v is not None})
+    return tags, f"{what} ({unit})", unit
 
 #: Solver flags that describe the section rather than call for review; kept out of profile.csv.
 INFO_ONLY_FLAGS = frozenset({"several_critical_depths"})

@@ -45,7 +45,7 @@ def test_compound_alpha_beta_with_walls():
     assert p.not_contained[0] and not properties(t, 1.9).not_contained[0]
 
 
-def test_overbank_split_at_n_change_and_horton_channel_n():
+def test_floodplain_split_at_n_change_and_horton_channel_n():
     # Horton/Einstein composite n (Chow 1959, ch. 6, from memory)
     x = [0, 10, 20, 20, 25, 30, 30, 40, 50]
     z = [3, 3, 3, 0, 0, 0, 3, 3, 3]

@@ -20,7 +20,7 @@ from geoflow.hydraulics.solver import FRICTION_RULES, REGIMES, Boundary, SolverO
 @st.composite
 def ground(draw, name):
     """A floodplain with bumps and a cross slope, a channel cut between two banks, n drawn per
-    segment (several overbank subdivisions), parts 0/1/2 from the banks."""
+    segment (several floodplain subdivisions), parts 0/1/2 from the banks."""
     m = draw(st.integers(6, 24))
     spacing = st.one_of(st.just(0.0), st.floats(0.05, 25.0))  # 0: a vertical step
     steps = np.array(draw(st.lists(spacing, min_size=m - 1, max_size=m - 1)))
