@@ -26,7 +26,7 @@ from ..naming import safe_name
 from ..records import ReachGeometry
 from ..roughness import case_factors, combine, composite_n_by_part
 from ..roughness.overlay import GAP_CLASS
-from . import calibrate, ratings, reach
+from . import calibrate, ratings, reach, structures
 from .inputs import Inputs, open_inputs
 from .layout import relative_name
 from .manifest import part_paths
@@ -103,6 +103,8 @@ def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float)
     info["sections"], info["warnings"] = len(geom.sections), list(geom.warnings)
     if geom.channel:
         info["channel"] = geom.channel
+    if geom.structures:
+        info["structures"] = structures.manifest_entry(cfg, geom)
     info["files"] = [relative_name(cfg.run.output_dir, _write_sections_part(cfg, inputs, geom))]
     t1 = time.perf_counter()
     todo = [e for e in cfg.events if e.name in spec.events]
@@ -180,6 +182,10 @@ def _compute_event(cfg: Config, inputs, geom, profs: dict, ev, factors: dict) ->
                          ignore_index=True)
         files = _write_maps(cfg, inputs, geom, ev.name, profs, factors)
         files.append(outputs.write_profile_csv(parts["profile"], rows))
+        if geom.structures:
+            table = pd.concat([outputs.structure_rows(geom, ev.name, p, case) for case, p in profs.items()],
+                              ignore_index=True)
+            files.append(outputs.write_structures_csv(parts["structures"], table))
         t2 = time.perf_counter()
     except GeoflowError as exc:
         return {"status": "failed", "error": str(exc)}

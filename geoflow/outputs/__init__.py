@@ -15,6 +15,7 @@ from .files import (
                     write_raster,
                     write_rating_csv,
                     write_sections_gpkg,
+                    write_structures_csv,
 )
 from .tables import (
                     CALIBRATION_COLUMNS,
@@ -23,12 +24,15 @@ from .tables import (
                     PROFILE_COLUMNS,
                     RATING_COLUMNS,
                     SECTION_COLUMNS,
+                    STRUCTURE_COLUMNS,
                     empty_profile,
+                    empty_structures,
                     profile_rows,
                     section_rows,
+                    structure_rows,
 )
 
 __all__ = ["BlockWriter", "CALIBRATION_COLUMNS", "RATING_COLUMNS", "EXTENT_COLUMNS", "INFO_ONLY_FLAGS", "PROFILE_COLUMNS", "SECTION_COLUMNS", "atomic_path",
            "block_raster_writer", "cog_options", "empty_profile", "profile_rows", "section_rows",
            "tiled_gtiff_options", "write_calibration_csv", "write_rating_csv", "write_extent_gpkg", "write_manifest", "write_profile_csv", "write_raster",
-           "write_sections_gpkg"]
+           "write_sections_gpkg", "STRUCTURE_COLUMNS", "empty_structures", "structure_rows", "write_structures_csv"]
