@@ -142,3 +142,23 @@ def test_structures_parse_with_defaults(tmp_path):
     with pytest.raises(ConfigError, match="coefficient rule"):
         check(write_config(tmp_path, v, discharge=20.0, n=0.03, extra=extra.replace(
             "crest_length = 10.0", 'crest_length = 10.0\ncoefficient = "rehbok"')))
+
+
+def test_demo_bridge_sits_on_the_road_crossing_with_the_dem_opening():
+    # sample_gis/README.md: the road crosses the valley at E 302985 (its crest 1.3 m above the floodplain)
+    # with an opening over the river; make_demo.py lowers the road by (30 m - distance from the river
+    # centreline) / 2 near the river, so the ground along the road reaches the deck soffit (48.40 m, about
+    # 0.37 m below the crest there) at 30 - 2 x 0.37 = 29.3 m either side of the centreline
+    from geoflow.batch.reach import build_tables
+    from geoflow.batch.structures import bridge_setup
+    root = Path(__file__).resolve().parents[1]
+    result = check(root / "configs" / "demo.toml")
+    geom = result.geometries["main"]
+    road = LineString([(302985.0, 5200000.0), (302985.0, 5201400.0)])
+    assert geom.centreline.project(geom.centreline.intersection(road)) == pytest.approx(3193.0, abs=0.5)
+    (place,) = geom.structures
+    up, down = geom.sections[place.upstream], geom.sections[place.upstream + 1]
+    assert (up.chainage, down.chainage) == (3184.0, 3202.0)
+    assert shapely.distance(up.line, road) > 6.75 and shapely.distance(down.line, road) > 6.75   # off the embankment
+    bridge, _, _ = bridge_setup(result.config.structures[0], place, build_tables(geom, result.config))
+    assert -bridge.opening_left == pytest.approx(29.3, abs=1.0) and bridge.opening_right == pytest.approx(29.3, abs=1.0)

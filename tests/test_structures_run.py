@@ -22,6 +22,7 @@ from scipy.optimize import brentq
 from valleys import make_valley, write_config
 
 from geoflow.cli import main
+from geoflow.flags import FLAGS
 from geoflow.outputs import STRUCTURE_COLUMNS
 
 G = 9.80665
@@ -52,9 +53,12 @@ def valley(tmp_path, slope=SLOPE, road_at=None, crest=None, gap=None):
     return v
 
 
-def run_case(tmp_path, v, discharges, structure: str, n=0.035, regime="", upstream=""):
+def run_case(tmp_path, v, discharges, structure: str, n=0.035, regime="", upstream="", cases=False):
     cfg = write_config(tmp_path, v, discharge=discharges[0], n=n, width=116.0, extra=structure)
     text = cfg.read_text()
+    if cases:
+        text = text.replace(f"n = {n}\n", f"n = {n}\nn_low = {n * 0.8:.4f}\nn_high = {n * 1.25:.4f}\n").replace(
+            'channel_class = "channel"\n', 'channel_class = "channel"\ncases = ["low", "high"]\n')
     for i, q in enumerate(discharges[1:]):
         text += f'\n[[events]]\nname = "e{i + 1}"\ndischarge = {q}\n'
     if regime:
@@ -65,6 +69,8 @@ def run_case(tmp_path, v, discharges, structure: str, n=0.035, regime="", upstre
     table = pd.read_csv(out / "structures.csv", keep_default_na=False, na_values=[""], dtype={"flags": str})
     profile = pd.read_csv(out / "profile.csv", keep_default_na=False, na_values=[""], dtype={"flags": str})
     table["flags"], profile["flags"] = table["flags"].fillna(""), profile["flags"].fillna("")
+    words = {w for f in list(table["flags"]) + list(profile["flags"]) for w in f.split(";") if w}
+    assert words <= set(FLAGS), sorted(words - set(FLAGS))          # every flag word is documented
     return table, profile, out
 
 
@@ -92,9 +98,14 @@ def circle(y):
     return D * D * (t - np.sin(t)) / 8.0, D * np.sin(t / 2.0)
 
 
+def critical_depth(q):
+    """Q^2 T/(g A^3) = 1 in the pipe (it falls from +inf at y = 0 to -1 at y = D: one root), by brentq."""
+    return brentq(lambda y: q * q * circle(y)[1] / (G * circle(y)[0] ** 3) - 1.0, 1e-6, D * (1 - 1e-12), xtol=1e-13)
+
+
 def hds5_form1(q, slope):
     """HW (m above the inlet invert) by HDS-5 unsubmerged form 1, with Hc = dc + Vc^2/2g (brentq)."""
-    dc = brentq(lambda y: q * q * circle(y)[1] / (G * circle(y)[0] ** 3) - 1.0, 1e-6, D * (1 - 1e-9), xtol=1e-13)
+    dc = critical_depth(q)
     a_c = circle(dc)[0]
     hc = dc + (q / a_c) ** 2 / (2 * G)
     x = KU * q / (np.pi * D * D / 4 * np.sqrt(D))
@@ -129,6 +140,15 @@ def barrel_flow_submerged(hw, slope):
     return x * (np.pi * D * D / 4) * np.sqrt(D) / KU
 
 
+def hds5_outlet(q, tailwater_depth, slope, n=0.013, ke=0.5):
+    """HWo (m above the inlet invert), HDS-5 2001 Eqs 5-7: ho + (1 + ke + 19.63 n^2 L / R^1.33) V^2/2g - S L with
+    the full-barrel V and R, ho = max(TW, (dc + D)/2); ke = 0.5 for a square edge with headwall (HDS-5 Table 12)."""
+    dc = critical_depth(q)
+    v = q / (np.pi * D * D / 4)
+    losses = (1 + ke + 19.63 * n * n * ROAD / (D / 4) ** 1.33) * v * v / (2 * G)
+    return max(tailwater_depth, 0.5 * (dc + D)) + losses - slope * ROAD
+
+
 def test_overtopped_culvert_splits_the_flow_between_barrel_and_road(tmp_path):
     v = valley(tmp_path, road_at=300.0, crest=2.5)
     crest_length, c_road = 100.0, 1.66
@@ -144,6 +164,9 @@ def test_overtopped_culvert_splits_the_flow_between_barrel_and_road(tmp_path):
         def balance(w, q=q):   # barrel (HDS-5 submerged inlet control) + road weir (HDS-5 Eq 8) = Q
             return barrel_flow_submerged(w - invert, SLOPE) + c_road * crest_length * (w - crest) ** 1.5 - q
         ref = brentq(balance, crest + 1e-6, crest + 5.0, xtol=1e-10)
+        q_barrel = barrel_flow_submerged(ref - invert, SLOPE)
+        outlet = hds5_outlet(q_barrel, row["tailwater_m"] - (invert - SLOPE * ROAD), SLOPE)
+        assert outlet < ref - invert                       # inlet control governs the barrel, as assumed
         assert row["headwater_m"] - invert == pytest.approx(ref - invert, rel=0.05)
         assert row["headwater_m"] == pytest.approx(ref, abs=2e-3)
         assert row["q_over_crest_m3s"] == pytest.approx(c_road * crest_length * (ref - crest) ** 1.5, rel=0.01)
@@ -205,10 +228,16 @@ length = 24.0
     expect = gap + 2.0 * low
     assert bridge.opening_left == pytest.approx(-expect, abs=0.5)       # within half a DEM cell
     assert bridge.opening_right == pytest.approx(expect, abs=0.5)
-    table, profile, _ = run_case(tmp_path, v, [5.0, 120.0], toml)
-    low_q, high_q = table.iloc[0], table.iloc[1]
+    table, profile, _ = run_case(tmp_path, v, [5.0, 120.0], toml, cases=True)
+    normal = table[table["roughness_case"] == "normal"]
+    low_q, high_q = normal.iloc[0], normal.iloc[1]
     assert low_q["control"] == "free_surface" and low_q["headwater_m"] >= low_q["tailwater_m"]
     assert high_q["control"] in ("pressure", "overtopping") and high_q["headwater_m"] > bed + low
+    # one row per structure x event x roughness case; rougher channels give higher levels at the bridge
+    assert sorted(table["roughness_case"].unique()) == ["high", "low", "normal"] and len(table) == 6
+    by_case = table[table["event"] == "design"].set_index("roughness_case")
+    assert by_case.loc["low", "tailwater_m"] < by_case.loc["normal", "tailwater_m"] < by_case.loc["high", "tailwater_m"]
+    assert by_case.loc["low", "headwater_m"] < by_case.loc["high", "headwater_m"]
 
 
 def test_mixed_regime_places_a_jump_ahead_of_a_weir_on_a_steep_valley(tmp_path):

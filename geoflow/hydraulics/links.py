@@ -32,6 +32,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -87,7 +88,7 @@ class Crossings:
                 raise HydraulicsError(f"structures {self.by_interval[int(k)].name!r} and {s.name!r} "
                                       "lie between the same two sections; give each its own faces")
             self.by_interval[int(k)] = s
-        self.results: dict[int, object] = {}
+        self.results: dict[int, Any] = {}   # k -> StructureResult (geoflow.hydraulics.structures)
         self.tailwater: dict[int, np.ndarray] = {}
 
     def __bool__(self) -> bool:
