@@ -63,6 +63,8 @@ CASES = [
      ["'pipe2'", "same place", "'pipe'"]),
     ("same_id_twice", lambda tmp, v: culvert() + culvert(chainage=320.0), ["'pipe'", "another structure"]),
     ("unsafe_id", lambda tmp, v: culvert(id='"a/b"'), ["id", "'a/b'"]),
+    ("road_coefficient_without_crest", lambda tmp, v: culvert(crest=None, crest_length=None, coefficient=1.5),
+     ["'pipe' coefficient", "needs crest"]),
     ("no_user_section_downstream", lambda tmp, v: _user_lines(tmp, v) + culvert(chainage=300.0),
      ["'pipe'", "no section downstream"]),
     ("low_chord_below_the_opening_ground", lambda tmp, v: bridge(low_chord=50.0, high_chord=54.0),

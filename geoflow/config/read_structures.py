@@ -119,6 +119,11 @@ def _culvert(r: _Reader, t: dict, where: str, sid: str):
     if road["crest"] is not None and road["crest_length"] is None:
         r.problem(f"{where} crest_length", "missing; a road crest needs its length across the valley (m)")
         return None
+    for key in ("crest_length", "coefficient"):
+        if key in t and "crest" not in t:
+            r.problem(f"{where} {key}", "describes the road over the culvert and needs crest (m); give crest or "
+                                        f"remove {key}")
+            return None
     if None in (shape, inlet, barrels) or None in nums.values() or None in inverts.values():
         return None
     kw = {k: v for k, v in sizes.items() if v is not None}
