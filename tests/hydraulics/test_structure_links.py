@@ -10,13 +10,16 @@ memory); Manning normal depth by scipy brentq.
 """
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 from scipy.integrate import solve_ivp
 from scipy.optimize import brentq
+from test_solver_fuzz import reaches, recomputed_residual
 
 from geoflow.errors import HydraulicsError
 from geoflow.hydraulics.geometry import build_table
 from geoflow.hydraulics.links import StructureLink
-from geoflow.hydraulics.solver import Boundary, SolverOptions, solve_events, solve_profile
+from geoflow.hydraulics.solver import REGIMES, Boundary, SolverOptions, solve_events, solve_profile
 from geoflow.hydraulics.structures import Culvert, Weir, culvert_headwater, weir_headwater
 
 B, Q, N, G = 10.0, 20.0, 0.02, 9.80665
@@ -215,3 +218,39 @@ def test_structure_intervals_are_checked():
     with pytest.raises(HydraulicsError, match="same two sections"):
         solve_profile(tables, lengths, np.full(5, Q), Boundary.normal_depth(0.0004),
                       structures=[weir_link(1, 200.0), weir_link(1, 201.0, name="b")])
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(reach=reaches(), regime=st.sampled_from(REGIMES), at=st.floats(0.0, 1.0), rise=st.floats(-1.0, 1.5),
+       length=st.floats(1.0, 100.0))
+def test_random_reaches_with_a_weir(reach, regime, at, rise, length):
+    # random natural-looking reaches (test_solver_fuzz) with a weir between two of their sections: both engines
+    # agree; the faces follow the wiring rules (links module); every other solved section meets the energy
+    # equation recomputed from the profile (Chow 1959, ch. 10, as in test_solver_fuzz)
+    tables, lengths, q, slope = reach
+    k = int(at * (len(tables) - 2) + 0.5)
+    face = tables[k]
+    crest = face.thalweg + rise * (face.top - face.thalweg + 1.0)
+    link = weir_link(k, crest, length=length)
+    result = {}
+    for engine in ("numpy", "compiled"):
+        opts = SolverOptions(regime=regime, engine=engine)
+        result[engine] = solve_events(tables, lengths, q, downstream=Boundary.normal_depth(slope),
+                                      upstream=Boundary.normal_depth(slope), options=opts, structures=[link])
+    for ref, fast in zip(result["numpy"], result["compiled"]):
+        np.testing.assert_allclose(fast.wse, ref.wse, rtol=0, atol=1e-6)
+        assert fast.flags == ref.flags
+        (level,) = ref.structures
+        if regime == "supercritical":
+            assert ref.wse[k + 1] == pytest.approx(ref.critical_wse[k + 1], abs=1e-9)
+            assert "outlet_critical" in ref.flags[k + 1]
+        elif "supercritical_approach" not in ref.flags[k]:
+            assert ref.wse[k] == pytest.approx(max(level.structure_headwater_wse, ref.critical_wse[k]), abs=1e-9)
+            assert level.structure_headwater_wse >= level.tailwater_wse - 1e-9      # a weir never lowers the level
+        for i, flags in enumerate(ref.flags):
+            if "critical_fallback" in flags or "boundary" in flags or ref.regime[i] == "critical":
+                continue
+            j = i - 1 if ref.regime[i] == "supercritical" else i + 1
+            if {i, j} == {k, k + 1}:
+                continue                                 # the structure, not an energy step
+            assert abs(recomputed_residual(ref, lengths, i, j, opts)) <= opts.tolerance + 1e-9
