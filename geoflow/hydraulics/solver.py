@@ -19,7 +19,9 @@ Flags (per section, plain words):
 - "not_contained": the WSE is above an end of the section; vertical walls were added;
 - "jump_upstream": a hydraulic jump lies between this section and the next one upstream;
 - "several_critical_depths": specific energy has more than one local minimum here (the lowest
-  one is reported as critical).
+  one is reported as critical);
+- at structures (``links``): "headwater_critical", "outlet_critical",
+  "headwater_above_supercritical", "supercritical_approach".
 
 Engines (``SolverOptions.engine``): "compiled" (default) runs numba kernels on the packed level
 tables of the reach (``engine_compiled``), all events and sections in one call per stage;
