@@ -63,6 +63,26 @@ class Section:
 
 
 @dataclass(frozen=True, eq=False)
+class StructurePlace:
+    """Where a structure sits among a reach's sections (:mod:`geoflow.sections.faces`).
+
+    ``upstream``: index of its upstream face section (the downstream face is the next one);
+    ``centre_stations``: station (m) where the centreline crosses the upstream / downstream
+    face; ``offset`` / ``ground``: the DEM ground (m, NaN where nodata) along the line through
+    the structure's chainage parallel to the upstream face, at ``offset`` m from the centreline
+    (negative to the left, looking downstream).
+    """
+
+    structure_id: str
+    kind: str                  # "culvert" | "weir" | "bridge"
+    chainage: float
+    upstream: int
+    centre_stations: tuple[float, float]
+    offset: np.ndarray
+    ground: np.ndarray
+
+
+@dataclass(frozen=True, eq=False)
 class ReachGeometry:
     """All cross-sections of one reach, ordered upstream to downstream."""
 
@@ -72,6 +92,13 @@ class ReachGeometry:
     lengths: np.ndarray        # (N-1, 3) m from section i to i+1: left floodplain, channel, right floodplain
     warnings: tuple[str, ...] = ()
     channel: dict | None = None   # what replaced the DEM's channel (plain values; see sections.channel)
+    structures: tuple[StructurePlace, ...] = ()   # culverts, weirs, bridges between face sections
+
+    def structure_markers(self) -> list[tuple[float, str]]:
+        """(chainage m, label) of each structure, upstream first, e.g. (3193.0, "bridge road_bridge"):
+        where a long profile marks them (the face sections carry the flags structure_upstream_face /
+        structure_downstream_face, and the upstream face's level is the structure's headwater)."""
+        return [(p.chainage, f"{p.kind} {p.structure_id}") for p in self.structures]
 
 
 @dataclass(frozen=True, eq=False)

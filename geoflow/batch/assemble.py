@@ -50,6 +50,8 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     result.paths.update(_mosaics(cfg, done))
     result.paths.update(_spreads(cfg, done))
     result.paths.update(_reach_tables(cfg, order, man))
+    if cfg.structures:
+        result.paths["structures"] = outputs.write_structures_csv(out / "structures.csv", _structures(cfg, done))
     if cfg.calibration is not None:
         man.data["calibration"] = calibration_entry(cfg, man.data["reaches"])
     if "report" in cfg.mapping.outputs:
@@ -160,6 +162,19 @@ def _reach_tables(cfg: Config, order: list[str], man: Manifest) -> dict:
         table = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame({c: [] for c in columns})
         written[key] = write(cfg.run.output_dir / name, table)
     return written
+
+
+def _structures(cfg: Config, done: dict[str, list[str]]) -> pd.DataFrame:
+    """structures.csv: the per reach x event parts of the complete units, in reach and event order."""
+    frames = []
+    for rid, events in done.items():
+        for ev in events:
+            path = part_paths(cfg.run.output_dir, safe_name(rid), safe_name(ev))["structures"]
+            if path.is_file():
+                frames.append(pd.read_csv(path, keep_default_na=False, na_values=[""],
+                                          dtype={"reach_id": str, "structure_id": str, "event": str,
+                                                 "roughness_case": str, "control": str, "flags": str}))
+    return pd.concat(frames, ignore_index=True) if frames else outputs.empty_structures()
 
 
 def _overlapping(tifs: list) -> list:

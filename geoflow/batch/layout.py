@@ -24,7 +24,7 @@ MANIFEST_NAME = "manifest.json"
 LOG_NAME = "run.log"
 LOCK_NAME = ".geoflow.lock"
 TOP_FILES = (MANIFEST_NAME, LOG_NAME, LOCK_NAME, "profile.csv", "sections.gpkg", "inundation.gpkg", "calibration.csv",
-             "rating_curves.csv")
+             "rating_curves.csv", "structures.csv")
 MANAGED_DIRS = ("rasters", "mosaic", "report", "parts", "uncertainty")
 PARTS_DIR = "parts"
 

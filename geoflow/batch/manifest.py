@@ -74,7 +74,7 @@ def part_paths(out_dir: Path, safe_reach: str, safe_event: str | None = None) ->
         return {"sections": base / "sections.gpkg", "calibration": base / "calibration.csv",
                 "ratings": base / "rating_curves.csv"}
     return {"profile": base / f"{safe_event}.profile.csv", "extent": base / f"{safe_event}.extent.gpkg",
-            "spread": base / f"{safe_event}.wse_spread.tif"}
+            "spread": base / f"{safe_event}.wse_spread.tif", "structures": base / f"{safe_event}.structures.csv"}
 
 
 @dataclass
@@ -106,8 +106,8 @@ class Manifest:
 
     def record_reach(self, reach_id: str, info: dict) -> None:
         self.data["reaches"][reach_id] = {k: info.get(k) for k in ("status", "error", "sections", "warnings",
-                                                                   "channel", "flags", "files", "timings_s",
-                                                                   "calibration")
+                                                                   "channel", "structures", "flags", "files",
+                                                                   "timings_s", "calibration")
                                           if info.get(k) is not None or k in ("status", "error")}
         for ev, unit in (info.get("events") or {}).items():
             self.data["units"][unit_key(reach_id, ev)] = unit

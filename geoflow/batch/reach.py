@@ -20,6 +20,7 @@ from ..hydraulics import Boundary, SolverOptions, build_table
 from ..hydraulics import solve_events as hydraulics_solve_events
 from ..records import ReachGeometry
 from ..roughness.cases import scaled_classes, scaled_section
+from . import structures
 from .inputs import Inputs
 
 
@@ -36,10 +37,11 @@ def build_geometry(cfg: Config, inputs: Inputs, reach_id: str, line) -> ReachGeo
                    if target == reach_id}
         others = {rid: other for rid, other in inputs.reaches if rid != reach_id and rid not in feeders}
         geom = sections.cut_sections(reach_id, line, inputs.dem, sc.spacing, sc.width, sample_step=sc.sample_step,
-                                     others=others, rise=sc.rise)
+                                     others=others, rise=sc.rise, spans=structures.face_spans(cfg, reach_id))
     geom = roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
                                       default_n=cfg.roughness.default_n)
     geom = fit_channel(cfg, inputs, geom)
+    geom = structures.place(cfg, geom, inputs.dem)
     notes = tuple(inputs.warnings.get(reach_id, ()))
     return dataclasses.replace(geom, warnings=notes + tuple(geom.warnings)) if notes else geom
 
@@ -129,7 +131,8 @@ def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Ev
     down = downstream or down
     q = np.stack([discharge_along(ev, geom.reach_id, chainage) for ev in events])
     jw = None if junction_wse is None else np.array([junction_wse[ev.name] for ev in events])
-    kw = dict(upstream=to_boundary(up), options=options or solver_options(cfg))
+    kw = dict(upstream=to_boundary(up), options=options or solver_options(cfg),
+              structures=structures.links(cfg, geom, tables))
     try:
         return dict(zip((ev.name for ev in events),
                         hydraulics_solve_events(tables, geom.lengths, q, downstream=to_boundary(down, jw), **kw)))

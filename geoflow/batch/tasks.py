@@ -26,7 +26,7 @@ from ..naming import safe_name
 from ..records import ReachGeometry
 from ..roughness import case_factors, combine, composite_n_by_part
 from ..roughness.overlay import GAP_CLASS
-from . import calibrate, ratings, reach
+from . import calibrate, ratings, reach, structures
 from .inputs import Inputs, open_inputs
 from .layout import relative_name
 from .manifest import part_paths
@@ -103,6 +103,8 @@ def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float)
     info["sections"], info["warnings"] = len(geom.sections), list(geom.warnings)
     if geom.channel:
         info["channel"] = geom.channel
+    if geom.structures:
+        info["structures"] = structures.manifest_entry(cfg, geom)
     info["files"] = [relative_name(cfg.run.output_dir, _write_sections_part(cfg, inputs, geom))]
     t1 = time.perf_counter()
     todo = [e for e in cfg.events if e.name in spec.events]
@@ -181,6 +183,10 @@ def _compute_event(cfg: Config, inputs, geom, profs: dict, ev, factors: dict) ->
                          ignore_index=True)
         files = _write_maps(cfg, inputs, geom, ev.name, profs, factors)
         files.append(outputs.write_profile_csv(parts["profile"], rows))
+        if geom.structures:
+            table = pd.concat([outputs.structure_rows(geom, ev.name, p, case) for case, p in profs.items()],
+                              ignore_index=True)
+            files.append(outputs.write_structures_csv(parts["structures"], table))
         t2 = time.perf_counter()
     except GeoflowError as exc:
         return {"status": "failed", "error": str(exc)}
@@ -307,7 +313,8 @@ def _write_reach_report(cfg: Config, inputs, geom) -> list[Path]:
         run_facts=report.run_facts(cfg, inputs.dem), section_facts=report.section_facts(cfg, geom.reach_id,
                                                                                          len(geom.sections)),
         events_table=report.events_table(cfg, geom.reach_id, prof, events), roughness_table=report.roughness_table(cfg),
-        layers=_map_layers(cfg, inputs, geom, events), markers=tuple(report.markers(cfg, geom.reach_id, lines)),
+        layers=_map_layers(cfg, inputs, geom, events),
+        markers=tuple(sorted(report.markers(cfg, geom.reach_id, lines) + geom.structure_markers())),
         index=INDEX_NAME)
     path = cfg.run.output_dir / "report" / f"{safe_name(geom.reach_id)}.html"
     return [report.write_report(path, geom.reach_id, geom, prof, events, caution=CAUTION, context=ctx)]
@@ -342,5 +349,6 @@ def _map_layers(cfg: Config, inputs, geom, events):
             outlines[ev] = list(ext.geometry)
     area = shapely.box(*bounds)
     others = {rid: line for rid, line in inputs.reaches if rid != geom.reach_id and line.intersects(area)}
+    places = [(geom.centreline.interpolate(c), label) for c, label in geom.structure_markers()]
     return MapLayers(dem=inputs.dem.read_preview(bounds, PREVIEW_CELLS), depth=depth, outlines=outlines,
-                      other_lines=others)
+                      other_lines=others, structures=tuple((p.x, p.y, label) for p, label in places))

@@ -11,8 +11,9 @@ Steps, each problem collected rather than raised at once where that makes sense:
 2. every reach: its id (path-safe, not too long, unique once made path-safe), its centreline
    inside the DEM and over DEM data, flow changes within its length;
 3. every reach's sections cut and given Manning's n (what the run will use), stage / rating
-   boundaries checked against the ground of the end sections, and observed levels
-   ([calibration] observations) within the sections of the reach they belong to;
+   boundaries checked against the ground of the end sections, observed levels
+   ([calibration] observations) within the sections of the reach they belong to, and its
+   structures ([[structures]]) checked against their face sections;
 4. no output may overwrite an input (:func:`geoflow.batch.layout.check_inputs_not_outputs`).
 
 Reach-level problems (2-3) are returned by reach; :func:`check` and ``run`` raise them as one
@@ -33,7 +34,7 @@ from ..errors import GeoflowError, GeometryError, InputDataError
 from ..naming import safe_name
 from ..records import ReachGeometry
 from ..sections.channel import describe_channel
-from . import reach
+from . import reach, structures
 from .inputs import Inputs, open_inputs
 from .layout import check_inputs_not_outputs
 from .marks import check_within_sections
@@ -66,6 +67,10 @@ class CheckResult:
                          f"{flagged} flagged{observed}")
             if g.channel:
                 lines.append(f"    {describe_channel(rid, g.channel)}")
+            for p in g.structures:
+                up, down = g.sections[p.upstream], g.sections[p.upstream + 1]
+                lines.append(f"    {p.kind} {p.structure_id} at {p.chainage:g} m: faces sections {up.section_id} / "
+                             f"{down.section_id} ({up.chainage:.1f} / {down.chainage:.1f} m)")
             lines.extend(f"    warning: {w}" for w in g.warnings)
         lines.extend(f"  reach {rid}: PROBLEM: {msg}" for rid, msg in self.problems.items())
         return lines
@@ -103,8 +108,9 @@ def validate(config: str | Path | Config, others: tuple = ()) -> CheckResult:
             problems[rid] = str(exc)
             continue
         level = boundary_level_problems(cfg, rid, _end_ground(geom), _end_discharges(cfg, rid, geom))
-        if level:
-            problems[rid] = f"{cfg.path}: " + "; ".join(level)
+        built = _structure_problems(cfg, geom)
+        if level or built:
+            problems[rid] = f"{cfg.path}: " + "; ".join(level + built)
         else:
             geoms[rid] = geom
     check_within_sections(cfg, inputs.marks, geoms)
@@ -148,6 +154,14 @@ def reach_problems(cfg: Config, inputs: Inputs) -> dict[str, str]:
     lengths = {rid: float(line.length) for rid, line in inputs.reaches}
     raise_problems(cfg, reach_length_problems(cfg, lengths))
     return problems
+
+
+def _structure_problems(cfg: Config, geom: ReachGeometry) -> list[str]:
+    """Problems of the reach's structures on its sections (a culvert wider than the valley, a
+    bridge opening the face sections cannot hold, ...)."""
+    if not geom.structures:
+        return []
+    return structures.check(cfg, geom, reach.build_tables(geom, cfg))
 
 
 def _ground_under(line, dem, max_points: int = 2000) -> np.ndarray:

@@ -35,6 +35,7 @@ from .model import (  # noqa: F401
     RoughnessConfig,
     RunConfig,
     SectionsConfig,
+    StructureSpec,
     TerrainConfig,
 )
 from .read import (
@@ -52,15 +53,16 @@ from .read import (
 )
 from .read_analysis import read_calibration, read_rating_curves
 from .read_channel import _read_channel
+from .read_structures import read_structures
 
 __all__ = ["load_config", "Config", "RunConfig", "TerrainConfig", "ReachesConfig", "SectionsConfig",
            "RoughnessClass", "RoughnessConfig", "FlowChange", "Event", "BoundarySpec", "BoundaryConfig",
            "HydraulicsConfig", "MappingConfig", "ChannelConfig", "ChannelReach", "ChannelShape",
-           "CalibrationConfig", "RatingCurvesConfig", "REGIMES", "BOUNDARY_TYPES", "FRICTION_SLOPE_METHODS",
+           "CalibrationConfig", "RatingCurvesConfig", "StructureSpec", "REGIMES", "BOUNDARY_TYPES", "FRICTION_SLOPE_METHODS",
            "MAPPING_OUTPUTS", "VERTICAL_UNITS"]
 
 TOP_LEVEL = ("run", "terrain", "reaches", "sections", "roughness", "events", "boundary", "hydraulics", "mapping",
-             "channel", "calibration", "rating_curves")
+             "channel", "calibration", "rating_curves", "structures")
 
 
 def load_config(path: str | Path) -> Config:
@@ -86,6 +88,7 @@ def load_config(path: str | Path) -> Config:
         boundary=_read_boundary(r, doc), hydraulics=_read_hydraulics(r, doc), mapping=_read_mapping(r, doc),
         channel=_read_channel(r, doc),
         calibration=read_calibration(r, doc), rating_curves=read_rating_curves(r, doc, _read_bspec),
+        structures=read_structures(r, doc),
     )
     if r.problems:
         raise ConfigError(_summarise(path, r.problems), problems=[f"{path}: {p}" for p in r.problems])

@@ -106,6 +106,11 @@ def _reach_name_problems(cfg: Config, reach_ids: list[str]) -> list[str]:
         for rid in names:
             if rid not in known:
                 out.append(f"[{table}.{rid}]: names a reach that is not in {cfg.reaches.centrelines.name} {listing}")
+    for s in cfg.structures:
+        if s.reach not in known:
+            near = difflib.get_close_matches(s.reach, sorted(known), n=1)
+            hint = f"; did you mean {near[0]!r}?" if near else ""
+            out.append(f"{s.where} reach: {s.reach!r} is not a reach of {cfg.reaches.centrelines.name} {listing}{hint}")
     return out
 
 
@@ -155,8 +160,9 @@ def _cell_size_problems(cfg: Config, dem_cell: float) -> list[str]:
 
 
 def reach_length_problems(cfg: Config, lengths: Mapping[str, float]) -> list[str]:
-    """Flow changes must lie within the reach they apply to (0 < chainage < reach length)."""
-    out = []
+    """Flow changes must lie within the reach they apply to (0 < chainage < reach length), and
+    structures with both their faces on their reach."""
+    out = _structure_chainage_problems(cfg, lengths)
     for ev in cfg.events:
         for i, ch in enumerate(ev.changes):
             for rid in ([ch.reach] if ch.reach is not None else list(lengths)):
@@ -166,6 +172,18 @@ def reach_length_problems(cfg: Config, lengths: Mapping[str, float]) -> list[str
                     out.append(f"[[events]] {ev.name!r} changes[{i}]: chainage {ch.chainage:g} m is beyond the "
                                f"downstream end of reach {rid!r} ({length:.1f} m long); a flow change must lie "
                                f"within its reach{hint}")
+    return out
+
+
+def _structure_chainage_problems(cfg: Config, lengths: Mapping[str, float]) -> list[str]:
+    out = []
+    for s in cfg.structures:
+        length = lengths.get(s.reach)
+        up, down = s.faces
+        if length is not None and (up < 0.0 or down > length):
+            out.append(f"{s.where} chainage: {s.chainage:g} m puts its faces at {up:g}-{down:g} m, off reach "
+                       f"{s.reach!r} (0-{length:.1f} m); a structure needs both faces on its reach (chainage from "
+                       f"{s.half_gap:g} to {length - s.half_gap:.1f} m)")
     return out
 
 

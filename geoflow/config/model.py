@@ -8,7 +8,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
-from typing import Mapping
+from typing import Any, Mapping
 
 from ..constants import VERTICAL_UNITS as _UNIT_FACTORS
 from ..constants import G
@@ -20,6 +20,9 @@ MAPPING_OUTPUTS = ("wse", "depth", "velocity", "extent", "report")
 ROUGHNESS_CASES = ("low", "high")          # besides "normal", which is always computed
 ADJUST_WORDS = ("channel", "floodplain")   # calibration groups named by a word rather than a class list
 VERTICAL_UNITS = tuple(_UNIT_FACTORS)
+STRUCTURE_TYPES = ("culvert", "weir", "bridge")
+#: smallest distance (m) from a structure's chainage to each of its face sections
+MIN_FACE_OFFSET = 1.0
 SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 
 
@@ -212,6 +215,43 @@ class RatingCurvesConfig:
 
 
 @dataclass(frozen=True)
+class StructureSpec:
+    """A culvert, weir or bridge on a reach (``[[structures]]``).
+
+    ``hydraulics`` holds its parameters as the record of :mod:`geoflow.hydraulics.structures`
+    (``Culvert``, ``Weir`` or ``Bridge``; a bridge's abutments are set when its reach is built,
+    from ``opening`` or from the DEM). ``length`` (m) is its extent along the flow: the faces
+    sit ``half_gap`` upstream and downstream of ``chainage``. ``opening``: bridge abutments
+    as (left, right) distances from the centreline, m, or None (from the DEM).
+    ``approach_velocity``: a weir's head is the energy head at its upstream face.
+    """
+
+    id: str
+    reach: str
+    chainage: float
+    type: str
+    length: float
+    hydraulics: Any
+    opening: tuple[float, float] | None = None
+    approach_velocity: bool = False
+
+    @property
+    def half_gap(self) -> float:
+        """Distance (m) from ``chainage`` to each face: half the length, at least MIN_FACE_OFFSET."""
+        return max(0.5 * self.length, MIN_FACE_OFFSET)
+
+    @property
+    def faces(self) -> tuple[float, float]:
+        """Chainages (m) of the upstream and downstream faces."""
+        return self.chainage - self.half_gap, self.chainage + self.half_gap
+
+    @property
+    def where(self) -> str:
+        """Its TOML path, for messages."""
+        return f"[[structures]] {self.id!r}"
+
+
+@dataclass(frozen=True)
 class Config:
     path: Path
     sha256: str
@@ -227,6 +267,11 @@ class Config:
     channel: ChannelConfig | None = None
     calibration: CalibrationConfig | None = None
     rating_curves: RatingCurvesConfig | None = None
+    structures: tuple[StructureSpec, ...] = ()
+
+    def structures_on(self, reach_id: str) -> tuple[StructureSpec, ...]:
+        """The structures of one reach, upstream first."""
+        return tuple(sorted((s for s in self.structures if s.reach == reach_id), key=lambda s: s.chainage))
 
     def input_files(self) -> dict[str, Path]:
         """Every input file this config names, by its TOML key (the config file itself included).

@@ -52,13 +52,14 @@ class CompiledEngine:
     def march_piece(self, q, wc, lengths, wse, res, status, i_from, i_to):
         march_piece(self.reach, q, wc, lengths, self.opt, wse, res, status, int(i_from), int(i_to))
 
-    def mixed(self, q, wc, lengths, result, w_up):
+    def mixed(self, q, wc, lengths, result, w_up, blocked=None):
         wse, res, status = (a.copy() for a in result)
         sup, jump = np.zeros(q.shape, dtype=bool), np.zeros(q.shape, dtype=bool)
         has_up = w_up is not None
         w_up = np.zeros(q.shape[0]) if w_up is None else np.asarray(w_up, dtype=float)
+        blocked = np.zeros(q.shape[1], dtype=bool) if blocked is None else np.asarray(blocked, dtype=bool)
         mixed_overlay(self.reach, q, wc, lengths, self.opt, wse, res, status, w_up, has_up,
-                      sup, jump)
+                      sup, jump, blocked)
         return (wse, res, status), sup, jump
 
     def props(self, wse):

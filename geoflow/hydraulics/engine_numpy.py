@@ -5,7 +5,8 @@ checked against it. Both engines offer the same four operations to ``solver``:
 - ``critical(q)``: critical WSE (E, N) and where specific energy has several minima;
 - ``march_piece(q, wc, lengths, wse, res, status, i_from, i_to)``: solve sections
   i_from +- 1 .. i_to in place from the WSE at i_from (upstream when i_to < i_from);
-- ``mixed(q, wc, lengths, result, w_up)``: overlay supercritical runs by specific force;
+- ``mixed(q, wc, lengths, result, w_up, blocked)``: overlay supercritical runs by specific force
+  (no step into the sections ``blocked`` marks: the downstream faces of structures);
 - ``props(wse)``: section properties at the solved WSE, dict of (E, N) / (E, N, 3) arrays.
 """
 from __future__ import annotations
@@ -39,10 +40,13 @@ class NumpyEngine:
             wse[:, i], res[:, i], status[:, i] = solve_step(
                 self.tables[i], q[:, i], known, lengths[min(i, k)], wc[:, i], up, self.opts)
 
-    def mixed(self, q, wc, lengths, result, w_up):
+    def mixed(self, q, wc, lengths, result, w_up, blocked=None):
         """Supercritical runs from the upstream boundary WSE ``w_up`` (E,) or None, and from
         every section where the subcritical run assumed critical depth; at each section the
-        branch with the larger specific force governs."""
+        branch with the larger specific force governs. ``blocked`` (N,) or None: no energy
+        step into section i where True (a structure lies between i-1 and i): a supercritical
+        run that reached i-1 ends there, with a jump at i when the subcritical level there is
+        solved."""
         tables, opts = self.tables, self.opts
         wse, res, status = (a.copy() for a in result)
         e, n = q.shape
@@ -60,6 +64,9 @@ class NumpyEngine:
         for i in range(1, n):
             idx = np.flatnonzero(sup[:, i - 1] | (status[:, i - 1] != OK))
             if idx.size == 0:
+                continue
+            if blocked is not None and blocked[i]:
+                jump[idx[sup[idx, i - 1] & (status[idx, i] == OK)], i] = True
                 continue
             known = section_state(tables[i - 1], wse[idx, i - 1], q[idx, i - 1], opts.g)
             w, r, st = solve_step(tables[i], q[idx, i], known, lengths[i - 1], wc[idx, i], False, opts)

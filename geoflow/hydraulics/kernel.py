@@ -371,11 +371,13 @@ def march_piece(reach, q, wc, lengths, opt, wse, res, status, i_from, i_to):
 
 
 @njit(**JIT)
-def mixed_overlay(reach, q, wc, lengths, opt, wse, res, status, w_up, has_up, sup, jump):
+def mixed_overlay(reach, q, wc, lengths, opt, wse, res, status, w_up, has_up, sup, jump, blocked):
     """Overlay supercritical runs on the subcritical result in place (``engine_numpy.mixed``):
     the branch with the larger specific force governs; a supercritical run that loses to a
     solved subcritical section places a jump there. ``w_up`` (E,) is the upstream boundary
-    WSE (used when ``has_up``)."""
+    WSE (used when ``has_up``). ``blocked`` (N,): no energy step into section i where True
+    (a structure between i-1 and i); a run that reached i-1 ends there, with a jump at i when
+    the subcritical level there is solved."""
     known, props = np.empty(7), np.empty(N_PROPS)
     g = opt[O_G]
     first = min(0, q.shape[1])  # not a literal 0: one compiled version of the callees
@@ -387,6 +389,10 @@ def mixed_overlay(reach, q, wc, lengths, opt, wse, res, status, w_up, has_up, su
     for i in range(1, q.shape[1]):
         for e in range(q.shape[0]):
             if not (sup[e, i - 1] or status[e, i - 1] != OK):
+                continue
+            if blocked[i]:
+                if sup[e, i - 1] and status[e, i] == OK:
+                    jump[e, i] = True
                 continue
             known_state(reach, i - 1, wse[e, i - 1], q[e, i - 1], g, known)
             w, r, st = step_downstream(reach, i, q[e, i], known, lengths[i - 1], wc[e, i], opt)

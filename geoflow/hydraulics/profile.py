@@ -34,6 +34,7 @@ class Profile:
     part_velocity: np.ndarray
     energy_residual: np.ndarray
     specific_force: np.ndarray
+    structures: tuple = ()      # links.StructureLevel of each structure on the reach (upstream order)
 
 
 def section_props(tables, wse):
@@ -93,15 +94,21 @@ def _fields(p, q, wc, wse, residual, status, g) -> dict:
         specific_force=specific_force(_PropsView(p), q, g))
 
 
-def assemble_events(p, q, wc, result, boundary, jump, several, g) -> tuple:
+def assemble_events(p, q, wc, result, boundary, jump, several, g, marks=(), structures=None) -> tuple:
     """E Profiles from stacked properties ``p`` (``section_props``, arrays (E, N)), discharge,
     critical WSE, the solver's (wse, residual, status) and the flag arrays, all (E, N): the
-    fields computed once for all events, then one Profile per event."""
+    fields computed once for all events, then one Profile per event. ``marks``: more flag
+    words, [(word, mask (E, N))], added after the solver's own; ``structures``: per event the
+    tuple of ``links.StructureLevel`` (or None)."""
     wse, residual, status = result
     fields = _fields(p, q, wc, wse, residual, status, g)
     codes = _flag_codes(status, boundary, jump, several, p["not_contained"])
-    return tuple(Profile(**{f: v[e] for f, v in fields.items()},
-                         flags=tuple(_flag_words(c) for c in codes[e].tolist()))
+    flags = [[_flag_words(c) for c in codes[e].tolist()] for e in range(q.shape[0])]
+    for word, mask in marks:
+        for e, i in zip(*np.nonzero(mask)):
+            flags[e][i] = flags[e][i] + (word,)
+    return tuple(Profile(**{f: v[e] for f, v in fields.items()}, flags=tuple(flags[e]),
+                         structures=() if structures is None else structures[e])
                  for e in range(q.shape[0]))
 
 

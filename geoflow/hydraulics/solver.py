@@ -19,7 +19,9 @@ Flags (per section, plain words):
 - "not_contained": the WSE is above an end of the section; vertical walls were added;
 - "jump_upstream": a hydraulic jump lies between this section and the next one upstream;
 - "several_critical_depths": specific energy has more than one local minimum here (the lowest
-  one is reported as critical).
+  one is reported as critical);
+- at structures (``links``): "headwater_critical", "outlet_critical",
+  "headwater_above_supercritical", "supercritical_approach".
 
 Engines (``SolverOptions.engine``): "compiled" (default) runs numba kernels on the packed level
 tables of the reach (``engine_compiled``), all events and sections in one call per stage;
@@ -28,13 +30,15 @@ Python step per section. Both give the same WSE within 1e-6 m and the same flags
 engine falls back to numpy when numba cannot be imported or a section has a depth law for n
 (no level tables).
 
-Internal boundaries (hook for hydraulic structures, not implemented): a one-regime march is a
-sequence of ``engine.march_piece(q, wc, lengths, wse, res, status, i_from, i_to)`` calls, each
-solving sections i_from +- 1 .. i_to from the WSE already set at i_from (see ``_march``). A
-culvert, weir or bridge between sections k and k+1 whose headwater is a function
-headwater(q, tailwater_wse) replaces the energy step over that interval: for a subcritical run,
-march n-1 -> k+1, set ``wse[:, k] = headwater(q[:, k], wse[:, k + 1])`` (with its own status),
-then march k -> 0; ``_march`` takes such splits as ``links``, a dict {k: headwater}.
+Internal boundaries (hydraulic structures, ``links``): a one-regime march is a sequence of
+``engine.march_piece(q, wc, lengths, wse, res, status, i_from, i_to)`` calls, each solving
+sections i_from +- 1 .. i_to from the WSE already set at i_from (see ``_march``). A culvert,
+weir or bridge between sections k and k+1 (``links.StructureLink``) replaces the energy step
+over that interval: a subcritical march goes n-1 -> k+1, sets the upstream face from the
+structure's headwater for the tailwater at k+1, then goes on k -> 0; a supercritical march goes
+0 -> k and starts again at k+1 from critical depth; the mixed overlay never steps across a
+structure. ``links`` explains the rules, the flags they add and the per-event records
+(``Profile.structures``).
 """
 from __future__ import annotations
 
@@ -47,6 +51,7 @@ from geoflow.constants import G
 from geoflow.errors import HydraulicsError
 from geoflow.hydraulics.boundaries import Boundary, normal_wse  # noqa: F401  (re-exported)
 from geoflow.hydraulics.engine_numpy import NumpyEngine
+from geoflow.hydraulics.links import Crossings, StructureLink
 from geoflow.hydraulics.profile import Profile, assemble_events
 from geoflow.hydraulics.step import CRITICAL, OK
 
@@ -126,8 +131,10 @@ def _engine(tables, opts):
 def _march(engine, lengths, q, wc, w0, downstream: bool, links=None):
     """One-regime march. Subcritical (downstream=False) starts at the last section with WSE
     w0 and goes upstream; supercritical starts at the first one and goes downstream.
-    ``links`` {k: headwater(q, tailwater_wse) -> wse} would replace the energy step between
-    sections k and k+1 (the structure hook of the module docstring; subcritical only)."""
+    ``links`` {k: headwater(q, tailwater_wse) -> wse} replace the energy step between sections
+    k and k+1 (module docstring): subcritical, the WSE at k is headwater(q[:, k], wse[:, k+1]);
+    supercritical, section k+1 starts at its critical WSE and headwater(q[:, k], wc[:, k+1])
+    is called for its record only."""
     e, n = q.shape
     wse, res, status = np.empty((e, n)), np.zeros((e, n)), np.full((e, n), OK)
     first = 0 if downstream else n - 1
@@ -135,19 +142,23 @@ def _march(engine, lengths, q, wc, w0, downstream: bool, links=None):
     wse[:, first] = np.where(wrong, wc[:, first], w0)
     status[:, first] = np.where(wrong, CRITICAL, OK)
     last = n - 1 if downstream else 0
-    cuts = sorted(links or {}, reverse=True)
-    if cuts and downstream:
-        raise HydraulicsError("internal boundaries are only supported in a subcritical march")
-    for k in cuts:  # pieces first .. k+1, then the structure sets section k
-        engine.march_piece(q, wc, lengths, wse, res, status, first, k + 1)
-        wse[:, k] = links[k](q[:, k], wse[:, k + 1])
-        first = k
+    for k in sorted(links or {}, reverse=not downstream):
+        if downstream:  # pieces first .. k, then the outlet starts k+1 at critical depth
+            engine.march_piece(q, wc, lengths, wse, res, status, first, k)
+            links[k](q[:, k], wc[:, k + 1])
+            wse[:, k + 1], status[:, k + 1] = wc[:, k + 1], OK
+            first = k + 1
+        else:  # pieces first .. k+1, then the structure sets section k
+            engine.march_piece(q, wc, lengths, wse, res, status, first, k + 1)
+            wse[:, k] = links[k](q[:, k], wse[:, k + 1])
+            first = k
     engine.march_piece(q, wc, lengths, wse, res, status, first, last)
     return wse, res, status
 
 
 def solve_events(tables, lengths, discharges, downstream: Boundary | None = None,
-                 upstream: Boundary | None = None, options: SolverOptions | None = None):
+                 upstream: Boundary | None = None, options: SolverOptions | None = None,
+                 structures=()):
     """Solve E events at once on the same sections (vectorised across events).
 
     ``tables``: N SectionTable, upstream -> downstream; ``lengths`` (N-1, 3) m (left floodplain,
@@ -155,12 +166,16 @@ def solve_events(tables, lengths, discharges, downstream: Boundary | None = None
     subcritical and mixed regimes; ``upstream`` is used by the supercritical regime (critical
     depth when None) and, in the mixed regime, starts a supercritical run at the first section
     when its WSE is below critical. Stage boundaries may give one WSE per event.
+    ``structures``: ``StructureLink``s, each between its upstream face (``interval``) and the
+    next section (``links`` module); their records are in each ``Profile.structures``.
     Returns a tuple of E ``Profile``."""
     opts = options or SolverOptions()
     q, ln = _checked(tables, lengths, discharges)
     e, n = q.shape
+    crossings = Crossings(structures, tables)
     engine = _engine(tables, opts)
     wc, several = engine.critical(q)
+    links = crossings.links(wc) if crossings else None
     boundary = np.zeros((e, n), dtype=bool)
     sup = np.zeros((e, n), dtype=bool)
     jump = np.zeros((e, n), dtype=bool)
@@ -168,28 +183,32 @@ def solve_events(tables, lengths, discharges, downstream: Boundary | None = None
         if downstream is None:
             raise HydraulicsError(f"regime {opts.regime!r} needs a downstream boundary")
         w0 = downstream.wse_at(tables[-1], q[:, -1], wc[:, -1])
-        result = _march(engine, ln, q, wc, w0, False)
+        result = _march(engine, ln, q, wc, w0, False, links)
         boundary[:, -1] = True
         if opts.regime == "mixed":
             w_up = None if upstream is None else upstream.wse_at(tables[0], q[:, 0], wc[:, 0])
-            result, sup, jump = engine.mixed(q, wc, ln, result, w_up)
+            blocked = crossings.blocked(n) if crossings else None
+            result, sup, jump = engine.mixed(q, wc, ln, result, w_up, blocked)
             boundary[:, -1] &= ~sup[:, -1]
             boundary[:, 0] |= sup[:, 0]
     else:
         up = upstream or Boundary.critical()
         w0 = up.wse_at(tables[0], q[:, 0], wc[:, 0])
-        result = _march(engine, ln, q, wc, w0, True)
+        result = _march(engine, ln, q, wc, w0, True, links)
         boundary[:, 0] = True
     props = engine.props(result[0])
-    return assemble_events(props, q, wc, result, boundary, jump, several, opts.g)
+    marks = crossings.flags(opts.regime, q, result[0], wc, sup, opts.g) if crossings else []
+    levels = crossings.levels(result[0], marks) if crossings else None
+    return assemble_events(props, q, wc, result, boundary, jump, several, opts.g, marks, levels)
 
 
 def solve_profile(tables, lengths, discharge, downstream: Boundary | None = None,
-                  upstream: Boundary | None = None, options: SolverOptions | None = None) -> Profile:
+                  upstream: Boundary | None = None, options: SolverOptions | None = None,
+                  structures=()) -> Profile:
     """Solve one steady profile; ``discharge`` is (N,) m3/s. See ``solve_events``."""
     q = np.asarray(discharge, dtype=float).reshape(1, -1)
-    return solve_events(tables, lengths, q, downstream, upstream, options)[0]
+    return solve_events(tables, lengths, q, downstream, upstream, options, structures)[0]
 
 
-__all__ = ["Boundary", "SolverOptions", "Profile", "solve_profile", "solve_events",
+__all__ = ["Boundary", "SolverOptions", "Profile", "StructureLink", "solve_profile", "solve_events",
            "REGIMES", "FRICTION_RULES", "ENGINES"]

@@ -21,7 +21,15 @@ from rasterio.io import MemoryFile
 
 from ..constants import CAUTION, NODATA
 from ..errors import GeoflowError, OutputError, is_disk_full, write_error
-from .tables import CALIBRATION_COLUMNS, EXTENT_COLUMNS, LAYER_MEANING, PROFILE_COLUMNS, RATING_COLUMNS, SECTION_COLUMNS
+from .tables import (
+    CALIBRATION_COLUMNS,
+    EXTENT_COLUMNS,
+    LAYER_MEANING,
+    PROFILE_COLUMNS,
+    RATING_COLUMNS,
+    SECTION_COLUMNS,
+    STRUCTURE_COLUMNS,
+)
 
 # printf formats per profile column; other float columns use "%.6g".
 _PROFILE_FORMATS = {
@@ -29,6 +37,8 @@ _PROFILE_FORMATS = {
     "critical_wse_m": "%.4f", "velocity_ms": "%.4f", "froude": "%.4f", "alpha": "%.4f", "area_m2": "%.4f",
     "top_width_m": "%.4f", "friction_slope": "%.6g", "depth_m": "%.4f", "critical_depth_m": "%.4f",
     "observed_wse_m": "%.4f", "computed_wse_m": "%.4f", "residual_m": "%.4f", "backwater_length_m": "%.1f",
+    "headwater_m": "%.4f", "tailwater_m": "%.4f", "structure_headwater_m": "%.4f", "q_over_crest_m3s": "%.6g",
+    "q_through_m3s": "%.6g",
 }
 
 
@@ -218,6 +228,11 @@ def write_calibration_csv(path, df) -> Path:
 def write_rating_csv(path, df) -> Path:
     """Write rating_curves.csv with its contract columns first."""
     return _write_csv(path, df, RATING_COLUMNS)
+
+
+def write_structures_csv(path, df) -> Path:
+    """Write structures.csv (headwater, tailwater and control of each structure) with its contract columns first."""
+    return _write_csv(path, df, STRUCTURE_COLUMNS)
 
 
 def _write_csv(path, df, columns) -> Path:

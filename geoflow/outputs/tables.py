@@ -68,6 +68,27 @@ RATING_MEANING = {
     "flags": "';'-separated flag words: solver flags, boundary_controlled, not_rising",
 }
 
+#: structures.csv: one row per structure x event x roughness case (a contract; extra columns follow).
+STRUCTURE_COLUMNS = ("reach_id", "structure_id", "event", "roughness_case", "discharge_m3s", "headwater_m",
+                     "tailwater_m", "control", "q_over_crest_m3s", "flags")
+STRUCTURE_MEANING = {
+    "reach_id": "reach the structure is on", "structure_id": "the structure's id ([[structures]] id)",
+    "event": "event name", "roughness_case": "Manning's n used (as in profile.csv)",
+    "discharge_m3s": "discharge through and over the structure, m3/s",
+    "headwater_m": "water level at the structure's upstream face in the profile, m: the structure's headwater, or "
+                   "critical depth there where that is higher (flag headwater_critical); in the supercritical and "
+                   "mixed regimes the supercritical level where the flow arrives supercritical",
+    "tailwater_m": "water level at the structure's downstream face, m (the profile's; critical depth there in the "
+                   "supercritical regime)",
+    "control": "what sets the headwater: inlet or outlet (culvert barrel), weir, free_surface (bridge low flow), "
+               "pressure (bridge deck reached), overtopping (part of the flow passes over the road or deck)",
+    "q_over_crest_m3s": "flow over the road crest or the bridge deck, m3/s",
+    "flags": "';'-separated flag words (see the README flag table)",
+    "type": "culvert, weir or bridge", "chainage_m": "the structure's chainage, m",
+    "q_through_m3s": "flow through the barrels or the bridge opening (over the crest for a weir), m3/s",
+    "structure_headwater_m": "headwater the structure's equations give for this discharge and tailwater, m",
+}
+
 #: What each raster kind holds: band description and unit, carried in the file's own metadata.
 RASTER_MEANING = {
     "wse": ("water-surface elevation", "m"),
@@ -135,6 +156,26 @@ def profile_rows(geom, event: str, prof, case: str = "normal") -> pd.DataFrame:
         "flags": flags,
     })
     return df
+
+
+def structure_rows(geom, event: str, prof, case: str = "normal") -> pd.DataFrame:
+    """structures.csv rows (contract columns first) of one reach, event and roughness case.
+
+    ``prof.structures``: the :class:`geoflow.hydraulics.StructureLevel` of each structure;
+    ``geom.structures`` gives their type and chainage."""
+    places = {p.structure_id: p for p in geom.structures}
+    rows = [{"reach_id": geom.reach_id, "structure_id": s.name, "event": event, "roughness_case": case,
+             "discharge_m3s": s.discharge, "headwater_m": s.headwater_wse, "tailwater_m": s.tailwater_wse,
+             "control": s.control, "q_over_crest_m3s": s.q_over_crest, "flags": ";".join(s.flags),
+             "type": places[s.name].kind, "chainage_m": places[s.name].chainage,
+             "q_through_m3s": s.q_through, "structure_headwater_m": s.structure_headwater_wse}
+            for s in prof.structures]
+    return pd.DataFrame(rows) if rows else empty_structures()
+
+
+def empty_structures() -> pd.DataFrame:
+    """A structures table with the contract columns and no rows."""
+    return pd.DataFrame({c: np.array([], dtype=object) for c in STRUCTURE_COLUMNS})
 
 
 def section_rows(geom, composite_n) -> list[dict]:

@@ -38,7 +38,7 @@ _MIN_WIDTH_FRACTION = 0.1    # refuse repairs that leave less than this fraction
 def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, width: float,
                  sample_step: float | None = None, smoothing: float | None = None,
                  repair: bool = True, others=None, rise: float | None = None,
-                 rise_margin: float | None = None, follow_grid: bool = True) -> ReachGeometry:
+                 rise_margin: float | None = None, follow_grid: bool = True, spans=()) -> ReachGeometry:
     """Cut cross-sections every ``spacing`` m along ``centreline`` and sample the ground.
 
     Sections sit at chainage 0, spacing, 2·spacing, ... and at the downstream end L (if the
@@ -59,6 +59,12 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
 
     ``lengths`` (N-1, 3): channel = chainage difference; left/right floodplain = distance
     between the mid-points of the left (right) halves of consecutive section lines.
+
+    ``spans``: (upstream, downstream) chainage pairs (m) to keep free of sections, e.g. the
+    faces of a structure: a section is cut at both ends of each span, none inside it, and the
+    regular ones within spacing/10 of it are dropped (the reach ends are kept). The two end
+    sections of a span share the direction of the centreline at the span's middle, so they are
+    parallel.
     """
     rid = str(reach_id)
     step = float(sample_step) if sample_step is not None else float(dem.cell_size)
@@ -68,9 +74,9 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
     line = shapely.force_2d(centreline)
     check_inside(rid, line, dem.bounds)
     length = float(line.length)
-    chain = _chainages(rid, length, float(spacing))
+    chain, chord_at = _with_spans(_chainages(rid, length, float(spacing)), spans, float(spacing))
     h = float(smoothing) if smoothing is not None else 0.5 * float(spacing)
-    centre, left_normal = _frame(rid, line, chain, h, min(max(step, 0.1 * float(spacing)), h))
+    centre, left_normal = _frame(rid, line, chain, h, min(max(step, 0.1 * float(spacing)), h), chord_at)
     flags: list[list[str]] = [[] for _ in chain]
     warnings: list[str] = []
     half = _side_lengths(rid, line, chain, centre, left_normal, dem, float(spacing), float(width), step,
@@ -197,12 +203,31 @@ def _chainages(rid: str, length: float, spacing: float) -> np.ndarray:
     return np.append(chain, length)
 
 
-def _frame(rid: str, line: LineString, chain: np.ndarray, smoothing: float, h_min: float):
-    """Centre points (N, 2) and unit LEFT normals (N, 2) from the smoothed chord direction."""
+def _with_spans(chain: np.ndarray, spans, spacing: float) -> tuple[np.ndarray, np.ndarray]:
+    """Chainages with the ends of each span added and none inside it (see cut_sections), and the
+    chainage whose direction each section takes (the span's middle for its two ends)."""
+    if not len(spans):
+        return chain, chain
+    ends = [float(x) for span in spans for x in span]
+    keep = np.ones(chain.size, dtype=bool)
+    for a, b in spans:
+        keep &= ~((chain > a - 0.1 * spacing) & (chain < b + 0.1 * spacing))
+    keep[[0, -1]] = [all(abs(chain[0] - e) > 1e-6 for e in ends), all(abs(chain[-1] - e) > 1e-6 for e in ends)]
+    out = np.union1d(chain[keep], ends)
+    chord_at = out.copy()
+    for a, b in spans:
+        chord_at[np.isin(out, [float(a), float(b)])] = 0.5 * (float(a) + float(b))
+    return out, chord_at
+
+
+def _frame(rid: str, line: LineString, chain: np.ndarray, smoothing: float, h_min: float, chord_at=None):
+    """Centre points (N, 2) and unit LEFT normals (N, 2) from the smoothed chord direction
+    (taken at ``chord_at``, default the chainages themselves)."""
     length = float(line.length)
-    h = np.clip(np.minimum(chain, length - chain), h_min, smoothing)
-    a = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(chain - h, 0.0, length)))
-    b = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(chain + h, 0.0, length)))
+    at = chain if chord_at is None else np.asarray(chord_at, dtype=float)
+    h = np.clip(np.minimum(at, length - at), h_min, smoothing)
+    a = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(at - h, 0.0, length)))
+    b = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(at + h, 0.0, length)))
     centre = shapely.get_coordinates(shapely.line_interpolate_point(line, chain))
     d = b - a
     norm = np.hypot(d[:, 0], d[:, 1])
