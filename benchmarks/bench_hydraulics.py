@@ -1,6 +1,7 @@
-"""Throughput of the standard-step solver (``solve_events``) against scipy ``solve_ivp``
-references at equal accuracy, plus the hydraulics share of the demo run. All ratios are
-measured in one run of this script (the machine may be shared: repeat if numbers look noisy).
+"""Throughput of the standard-step solver (``solve_events``, compiled kernel and numpy reference
+engine) against scipy ``solve_ivp`` references at equal accuracy, plus the hydraulics share of
+the demo run. All ratios are measured in one run of this script (the machine may be shared:
+repeat if numbers look noisy).
 
 (a) PRISMATIC, closed-form ODE: trapezoid b = 5 m, side slope 2, n = 0.03, S0 = 0.001,
     500 sections 20 m apart, 10 events (Q = 5..100 m3/s, downstream WSE 1 m above normal
@@ -27,14 +28,21 @@ its ODE. The standard step runs without eddy losses (the ODEs have none); its er
 tolerance). A reference row uses the loosest RK45 rtol (1e-2, 1e-3, ...) whose error is not
 larger. Throughput = section x event solves per second of ``solve_events`` (tables prebuilt;
 ``build_table`` time is printed separately). The last column is reference time / standard-step
-time. The demo line runs ``geoflow.batch.run`` on configs/demo.toml (outputs to a temporary
-folder) and reads the manifest's per-reach timings.
-Run: python benchmarks/bench_hydraulics.py [--no-demo]
+time; the compiled rows reuse the reach's packed tables, whose one-off packing is printed
+separately, as is numba's compile time). The speed-up column is reference time / compiled
+time. The events table repeats (b) with 1, 10 and 200 events (Q evenly spaced in 20..400 m3/s)
+against (b') at equal accuracy for the same events. Compile time: a fresh process with an
+empty numba cache (NUMBA_CACHE_DIR in a temporary folder) solving a small reach in all three
+regimes, and a second process loading that cache. The demo line runs ``geoflow.batch.run`` on
+configs/demo.toml (outputs to a temporary folder) and reads the manifest's per-reach timings.
+Run: python benchmarks/bench_hydraulics.py [--no-demo] [--no-events]
 """
 from __future__ import annotations
 
 import dataclasses
 import json
+import os
+import subprocess
 import sys
 import tempfile
 import time
@@ -45,21 +53,25 @@ from scipy.integrate import solve_ivp
 
 from geoflow.hydraulics.boundaries import normal_wse
 from geoflow.hydraulics.geometry import build_table, fast_properties, properties
+from geoflow.hydraulics.packed import pack_reach
 from geoflow.hydraulics.solver import Boundary, SolverOptions, solve_events
 
 B, Z, N, S0, G = 5.0, 2.0, 0.03, 0.001, 9.80665
 SECTIONS, EVENTS, DX = 500, 10, 20.0
 NO_EDDY = SolverOptions(contraction=0.0, expansion=0.0)
+ENGINE_ROWS = (("compiled", "standard step, compiled kernel"), ("numpy", "standard step, numpy engine"))
 ROOT = Path(__file__).resolve().parents[1]
 
 
 def timed(fun, repeat=3):
-    """Best wall time of ``repeat`` calls, and the last result."""
+    """Best CPU time of this process over ``repeat`` calls, and the last result (CPU time, so
+    that other work on a shared machine disturbs the ratios less; everything here is single
+    threaded)."""
     best, result = np.inf, None
     for _ in range(repeat):
-        t0 = time.perf_counter()
+        t0 = time.process_time()
         result = fun()
-        best = min(best, time.perf_counter() - t0)
+        best = min(best, time.process_time() - t0)
     return best, result
 
 
@@ -108,8 +120,8 @@ def natural_ground(rng, k):
     return x, z, n, part
 
 
-def natural_case():
-    """(b): tables, lengths, discharges, downstream WSE and the interpolated-section ODEs."""
+def natural_tables():
+    """(b) geometry: 500 natural sections 20 m apart and their chainages."""
     rng = np.random.default_rng(20240601)
     x = np.arange(SECTIONS) * DX
     drop = S0 * (x[-1] - x)
@@ -117,10 +129,16 @@ def natural_case():
     for k, zb in enumerate(drop):
         xs, zs, ns, ps = natural_ground(rng, k)
         tables.append(build_table(xs, zs + zb, ns, ps, name=f"n{k}"))
-    qs = np.linspace(20.0, 400.0, EVENTS)
+    return tables, x
+
+
+def natural_case(tables, x, events=EVENTS, exact=True):
+    """(b): tables, lengths, discharges, downstream WSE and the interpolated-section ODEs."""
+    qs = np.linspace(20.0, 400.0, events)
     w_end = normal_wse(tables[-1], qs, S0)
-    odes = {"fast": natural_ode(tables, x, qs, w_end, fast_properties, True),
-            "exact": natural_ode(tables, x, qs, w_end, properties, False)}
+    odes = {"fast": natural_ode(tables, x, qs, w_end, fast_properties, True)}
+    if exact:
+        odes["exact"] = natural_ode(tables, x, qs, w_end, properties, False)
     return tables, np.full((SECTIONS - 1, 3), DX), np.repeat(qs[:, None], SECTIONS, 1), w_end, odes
 
 
@@ -155,36 +173,87 @@ def natural_ode(tables, x, qs, w_end, geometry, together):
     return ode
 
 
-def step_rows(label, case, truth):
-    """(name, seconds, max error m) of solve_events on ``case`` against ``truth`` (E, N)."""
+def step_rows(label, case, truth, repeat=3):
+    """(name, seconds, max error m) of solve_events on ``case`` against ``truth`` (E, N), one
+    row per engine (the compiled one first)."""
     tables, lengths, q, w_end, _ = case
-    t_step, profs = timed(lambda: solve_events(tables, lengths, q, Boundary.stage(w_end),
-                                               options=NO_EDDY))
-    err = max(np.max(np.abs(p.wse - truth[k])) for k, p in enumerate(profs))
-    return [(f"{label}: standard step, solve_events", t_step, err)]
+    rows = []
+    for engine, name in ENGINE_ROWS:
+        opts = dataclasses.replace(NO_EDDY, engine=engine)
+        t_step, profs = timed(lambda opts=opts: solve_events(tables, lengths, q, Boundary.stage(w_end),
+                                                             options=opts), repeat if engine == "compiled" else 1)
+        err = max(np.max(np.abs(p.wse - truth[k])) for k, p in enumerate(profs))
+        rows.append((f"{label}: {name}", t_step, err))
+    return rows
 
 
 def reference_row(label, ode, truth, err_step, repeat=2):
     """The loosest RK45 rtol whose max error is not larger than ``err_step``, timed."""
     for rtol in 10.0 ** -np.arange(2, 11):
-        t_ode, result = timed(lambda: ode("RK45", rtol), 1)
+        t_ode, result = timed(lambda rtol=rtol: ode("RK45", rtol), 1)
         err = np.max(np.abs(result - truth))
         if err <= err_step:
             if repeat > 1:
-                t_ode = min(t_ode, timed(lambda: ode("RK45", rtol), repeat - 1)[0])
+                t_ode = min(t_ode, timed(lambda rtol=rtol: ode("RK45", rtol), repeat - 1)[0])
             return (f"{label} rtol={rtol:.0e}", t_ode, err)
     raise RuntimeError(f"{label}: no RK45 tolerance reached the standard-step accuracy")
 
 
-def print_rows(title, rows):
-    """Rows (name, seconds, error); the last column is each row's time over the standard
-    step's (row 0): how many times faster the standard step is."""
-    work = SECTIONS * EVENTS
+def print_rows(title, rows, work=SECTIONS * EVENTS):
+    """Rows (name, seconds, error); the last column is each row's time over the compiled
+    standard step's (row 0): how many times faster the compiled kernel is."""
     print(title)
-    print(f"{'method':<66}{'time s':>8}{'sect*ev/s':>11}{'max err m':>11}{'step speed-up':>15}")
+    print(f"{'method':<66}{'time s':>8}{'sect*ev/s':>11}{'max err m':>11}{'kernel speed-up':>16}")
     for name, t, err in rows:
-        print(f"{name:<66}{t:>8.3f}{work / t:>11.0f}{err:>11.2e}{t / rows[0][1]:>14.1f}x")
+        print(f"{name:<66}{t:>8.3f}{work / t:>11.0f}{err:>11.2e}{t / rows[0][1]:>15.1f}x")
     print()
+
+
+def events_table(tables, x):
+    """(b) with 1, 10 and 200 events: both engines and (b') at equal accuracy per event set."""
+    print("(b) NATURAL sections, events: section*events/s and kernel speed-up over (b') at equal accuracy")
+    print(f"{'events':>6}{'kernel s':>10}{'sect*ev/s':>11}{'numpy s':>9}{'sect*ev/s':>11}"
+          f"{'RK45 s':>8}{'rtol':>7}{'sect*ev/s':>11}{'max err kernel/RK45 m':>24}{'vs RK45':>9}{'vs numpy':>9}")
+    for events in (1, 10, 200):
+        case = natural_case(tables, x, events, exact=False)
+        truth = case[4]["fast"]("DOP853", 1e-9)
+        (_, t_k, err), (_, t_n, _) = step_rows("", case, truth, repeat=5 if events < 200 else 2)
+        name, t_r, err_r = reference_row("", case[4]["fast"], truth, err, repeat=2 if events < 200 else 1)
+        work = SECTIONS * events
+        print(f"{events:>6}{t_k:>10.4f}{work / t_k:>11.0f}{t_n:>9.3f}{work / t_n:>11.0f}{t_r:>8.3f}"
+              f"{name.split('=')[1]:>7}{work / t_r:>11.0f}{err:>13.2e}/{err_r:.2e}{t_r / t_k:>8.1f}x"
+              f"{t_n / t_k:>8.1f}x")
+    print()
+
+
+COMPILE_PROBE = """
+import time
+t0 = time.process_time()
+import numpy as np
+from geoflow.hydraulics import Boundary, SolverOptions, build_table, solve_events
+import numba  # noqa: F401
+t1 = time.process_time()
+tables = [build_table([0, 0, 10, 10], [6 - 0.01 * i, 0.01 * i, 0.01 * i, 6], [0.03] * 3, [1] * 3)
+          for i in range(5)][::-1]
+for regime in ("subcritical", "supercritical", "mixed"):
+    solve_events(tables, np.full((4, 3), 50.0), np.full((2, 5), 20.0), Boundary.stage(2.0),
+                 Boundary.normal_depth(0.01), SolverOptions(regime=regime))
+print(t1 - t0, time.process_time() - t1)
+"""
+
+
+def compile_times():
+    """(import s, first solves s) of CPU time in a fresh process with an empty numba cache,
+    then in a second one that loads the cache it left."""
+    with tempfile.TemporaryDirectory() as cache:
+        env = dict(os.environ, NUMBA_CACHE_DIR=cache)
+        runs = [subprocess.run([sys.executable, "-c", COMPILE_PROBE], env=env, check=True,
+                               capture_output=True, text=True, cwd=ROOT).stdout.split()
+                for _ in range(2)]
+    (imp0, cold), (imp1, warm) = ([float(v) for v in r] for r in runs)
+    print(f"numba compile (CPU s, not in the timings below): first solves in a fresh process with "
+          f"an empty cache {cold:.1f} s; with the cache {warm:.2f} s (import of geoflow.hydraulics "
+          f"+ numba {imp0:.2f} / {imp1:.2f} s)\n")
 
 
 def demo_share():
@@ -204,13 +273,17 @@ def demo_share():
 
 
 def main():
+    compile_times()
     case_a = prismatic_case()
-    case_b = natural_case()
+    tables, x = natural_tables()
+    t_pack, _ = timed(lambda: pack_reach(list(tables)), 1)
+    case_b = natural_case(tables, x)
     rng = np.random.default_rng(1)
     grounds = [natural_ground(rng, k) for k in range(100)]
     t_build, _ = timed(lambda: [build_table(*g) for g in grounds])
     print(f"{SECTIONS} sections x {EVENTS} events; build_table of a natural section "
-          f"(151 points): {10 * t_build:.2f} ms (not in the timings below)\n")
+          f"(151 points): {10 * t_build:.2f} ms; packing the 500 natural tables for the kernel "
+          f"(once per reach): {1e3 * t_pack:.1f} ms (neither is in the timings below)\n")
     truth_a = case_a[4]("DOP853", 1e-10)
     rows = step_rows("(a)", case_a, truth_a)
     rows.append(reference_row("(a) solve_ivp RK45, closed-form trapezoid, per event", case_a[4],
@@ -224,6 +297,8 @@ def main():
     rows.append(reference_row("(b') solve_ivp RK45, level tables, events vectorised",
                               odes["fast"], truth_b, rows[0][2]))
     print_rows("(b) NATURAL sections vs a general-purpose ODE on the same sections", rows)
+    if "--no-events" not in sys.argv:
+        events_table(tables, x)
     if "--no-demo" not in sys.argv:
         demo_share()
 

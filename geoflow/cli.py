@@ -15,11 +15,17 @@ DESCRIPTION = (
 )
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with usage mistakes reported on one line (exit status 2), like every other error."""
+
+    def error(self, message: str):
+        self.exit(2, f"{self.prog}: error: {message} (see {self.prog.split()[0]} --help)\n")
+
+
 def _parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="geoflow", description=DESCRIPTION,
-                                formatter_class=argparse.RawDescriptionHelpFormatter)
+    p = _Parser(prog="geoflow", description=DESCRIPTION, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("--version", action="version", version=f"geoflow {__version__}")
-    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND", parser_class=_Parser)
     r = sub.add_parser("run", help="compute every reach x event of a config and write all outputs",
                        description=f"Compute every reach x event and write the outputs.\n\nCAUTION: {CAUTION}",
                        formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -65,7 +71,7 @@ def main(argv: list[str] | None = None) -> int:
     failed = 0
     for result in results:
         for rid, r in result.reaches.items():
-            print(f"{result.config.run.name}: reach {rid}: {verdict(r)}")
+            print(f"{result.config.run.name}: reach {rid}: {verdict(r)}" + _calibration_note(r.get("calibration")))
             for line in flag_lines(r):
                 print(f"    {line}")
         failed += len(result.failed)
@@ -81,6 +87,15 @@ def main(argv: list[str] | None = None) -> int:
               "with --resume to compute only what is missing", file=sys.stderr)
         return 1
     return 0
+
+
+def _calibration_note(cal: dict | None) -> str:
+    """' (calibrated: channel x0.70, ..., rmse 0.012 m)' for a reach entry's calibration, or ''."""
+    if not cal:
+        return ""
+    mult = ", ".join(f"{g} x{m:.3f}" for g, m in cal["multipliers"].items())
+    verdict = "" if cal["well_determined"] else "; NOT well determined, see run.log"
+    return f" (calibrated to {cal['marks']} mark(s): {mult}, rmse {cal['rmse_m']:.3f} m{verdict})"
 
 
 def entry() -> int:

@@ -20,3 +20,8 @@ MAX_NAME_LENGTH = 100
 
 #: Vertical units of a DEM and their factor to metres (international and US survey foot).
 VERTICAL_UNITS = {"m": 1.0, "ft": 0.3048, "us_ft": 1200.0 / 3937.0}
+
+#: Flood-outline parts smaller than this many output cells are left out of the outlines (the
+#: rasters keep them): they are cells that touch the flood only at a corner (wet areas are
+#: 8-connected, outline polygons 4-connected), e.g. 4 cells = 16 m2 on a 2 m grid.
+MIN_OUTLINE_PART_CELLS = 4

@@ -19,9 +19,11 @@ import shapely
 from shapely.geometry import LineString
 
 from .errors import InputDataError
+from .records import SurveyPoints
 
 _LINE_TYPES = ("LineString", "MultiLineString")
 _POLYGON_TYPES = ("Polygon", "MultiPolygon")
+SURVEY_FIELD = "z_m"
 
 
 @dataclass(frozen=True, eq=False)
@@ -156,6 +158,65 @@ def read_polygons(path, crs, layer: str | None = None) -> np.ndarray:
     if np.any(invalid):
         geoms[invalid] = shapely.make_valid(geoms[invalid])
     return geoms
+
+
+def read_survey_points(path, crs, layer: str | None = None) -> SurveyPoints:
+    """Surveyed ground points (field ``z_m``, metres in the DEM's vertical datum), reprojected to ``crs``.
+
+    ``dem_z`` is left NaN (the caller samples the DEM); ``fid`` is the feature's position in the
+    layer. Missing or non-numeric ``z_m`` values are an error naming the features.
+    """
+    path = Path(path)
+    gdf, where = _read_layer(path, crs, layer, [SURVEY_FIELD], ("Point",), "point")
+    try:
+        z = np.asarray(gdf[SURVEY_FIELD].to_numpy(), dtype=np.float64)
+    except (TypeError, ValueError):
+        raise InputDataError(f"{where}: field {SURVEY_FIELD!r} holds values that are not numbers; give the surveyed "
+                             "ground elevation in metres (the DEM's vertical datum)") from None
+    bad = np.flatnonzero(~np.isfinite(z))
+    if bad.size:
+        raise InputDataError(f"{where}: field {SURVEY_FIELD!r} is empty for {bad.size} point(s) (first: feature "
+                             f"{int(bad[0])}); give every point its surveyed elevation in metres")
+    xy = shapely.get_coordinates(np.asarray(gdf.geometry.values, dtype=object))
+    return SurveyPoints(x=xy[:, 0].copy(), y=xy[:, 1].copy(), z=z, dem_z=np.full(z.size, np.nan),
+                        fid=np.arange(z.size), source=where)
+
+
+@dataclass(frozen=True, eq=False)
+class Marks:
+    """Observed water levels (points) in the DEM CRS: ``x``, ``y`` (m), ``event`` (names),
+    ``wse`` (m) and ``feature`` (the feature's number in the layer, from 0), one per mark."""
+
+    x: np.ndarray
+    y: np.ndarray
+    event: np.ndarray
+    wse: np.ndarray
+    feature: np.ndarray
+    where: str = ""
+
+
+def read_marks(path, crs, layer: str | None = None, event_field: str = "event", wse_field: str = "wse_m") -> Marks:
+    """Read observed water levels: points with an event name and an observed level (m, DEM datum)."""
+    path = Path(path)
+    gdf, where = _read_layer(path, crs, layer, [event_field, wse_field], ("Point",), "point")
+    events = []
+    for i, v in enumerate(gdf[event_field].to_numpy()):
+        text = "" if v is None or (isinstance(v, float) and not np.isfinite(v)) else _as_text(v)
+        if not text:
+            raise InputDataError(f"{where}: field {event_field!r} is empty for feature {i}; give every mark the name "
+                                 "of the [[events]] it was left by")
+        events.append(text)
+    try:
+        wse = np.asarray(gdf[wse_field].to_numpy(), dtype=float)
+    except (TypeError, ValueError):
+        raise InputDataError(f"{where}: field {wse_field!r} must hold numbers (observed water level, m)") from None
+    bad = np.flatnonzero(~np.isfinite(wse))
+    if bad.size:
+        raise InputDataError(f"{where}: field {wse_field!r} is empty or not a number for feature {int(bad[0])}; give "
+                             "every mark its observed water level in metres")
+    xy = shapely.get_coordinates(shapely.force_2d(np.asarray(gdf.geometry.values, dtype=object)))
+    return Marks(x=xy[:, 0], y=xy[:, 1], event=np.array(events, dtype=object), wse=wse,
+                 feature=np.arange(len(gdf)), where=where)
 
 
 def _read_layer(path: Path, crs, layer, fields, allowed_types, kind, bbox=None, check: bool = True):

@@ -11,6 +11,7 @@ from pathlib import Path
 
 import numpy as np
 import rasterio
+import rasterio.enums
 from affine import Affine
 from rasterio.crs import CRS
 from rasterio.windows import Window
@@ -71,6 +72,24 @@ class Dem:
         if self.z_factor != 1.0:
             out *= self.z_factor
         return out
+
+    def read_preview(self, bounds: tuple[float, float, float, float], max_cells: int = 1200):
+        """(elevations m with NaN for no data, their (left, bottom, right, top)) of the window
+        covering ``bounds``, averaged down so neither side exceeds ``max_cells`` (read from the
+        DEM's overviews when it has them). For figures, not for computation."""
+        win = self.window_for(bounds, pad=0)
+        if win.width == 0 or win.height == 0:
+            return None
+        scale = max(1.0, max(win.width, win.height) / max_cells)
+        shape = (max(1, round(win.height / scale)), max(1, round(win.width / scale)))
+        try:
+            with rasterio.open(self.path) as ds:
+                arr = ds.read(1, window=win, out_shape=shape, masked=True,
+                              resampling=rasterio.enums.Resampling.average)
+        except rasterio.errors.RasterioError as exc:
+            raise InputDataError(f"{self.path}: cannot read the DEM's cells ({exc}); check it opens in a GIS") from None
+        out = np.asarray(arr.astype(np.float64).filled(np.nan)) * self.z_factor
+        return out, _bounds(self.window_transform(win), int(win.width), int(win.height))
 
     def sample(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         """Bilinear interpolation of elevation (m) at points (x, y) in DEM CRS.

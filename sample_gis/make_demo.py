@@ -5,6 +5,10 @@ Writes, into ``--out`` (default: this folder):
 * ``dem.tif``          float32 GeoTIFF, 2 m cells, EPSG:32630, tiled, DEFLATE + float predictor
 * ``centrelines.gpkg`` layer ``centrelines``: two reaches drawn upstream -> downstream
 * ``landcover.gpkg``   layer ``landcover``: gap-free, non-overlapping polygons, field ``cover``
+* ``dem_lidar.tif``    the first meander of the main river as a LiDAR survey would record it: the
+                       channel filled up to a flat water surface (the flow of the flight day)
+* ``lidar.gpkg``       layers ``centreline`` (that stretch of the main river) and ``survey``
+                       (a handful of surveyed cross-sections of the true channel, field ``z_m``)
 * ``README.md``        description of the scenario with the numbers computed here
 
 Everything is invented: the river names, the village and the terrain. The grid sits over open sea
@@ -457,15 +461,19 @@ def to_world(p: Params, geoms: np.ndarray) -> np.ndarray:
     return shapely.transform(geoms, lambda c: c + np.array([p.origin_e, p.origin_n]))
 
 
-def write_dem(path: Path, p: Params, z: np.ndarray) -> None:
-    """Float32 GeoTIFF, north-up, 256 px tiles, DEFLATE with the floating-point predictor."""
+def write_dem(path: Path, p: Params, z: np.ndarray, west: float = 0.0, north: float | None = None) -> None:
+    """Float32 GeoTIFF, north-up, 256 px tiles, DEFLATE with the floating-point predictor.
+
+    ``west`` / ``north``: local metres of the raster's west and north edges (default: the full extent).
+    """
     import rasterio
     from affine import Affine
 
+    north = p.height_m if north is None else north
     profile = dict(driver="GTiff", width=z.shape[1], height=z.shape[0], count=1,
                    dtype="float32", crs=f"EPSG:{p.epsg}", nodata=p.nodata,
-                   transform=Affine(p.cell_m, 0.0, p.origin_e,
-                                    0.0, -p.cell_m, p.origin_n + p.height_m),
+                   transform=Affine(p.cell_m, 0.0, p.origin_e + west,
+                                    0.0, -p.cell_m, p.origin_n + north),
                    tiled=True, blockxsize=256, blockysize=256, compress="deflate", predictor=3,
                    zlevel=9)
     with rasterio.open(path, "w", **profile) as dst:
@@ -580,6 +588,8 @@ Regenerate (deterministic; numpy `default_rng(seed)`):
 | `dem.tif` | float32 GeoTIFF, {p.cell_m:g} m cells, {int(p.width_m / p.cell_m)} x {int(p.height_m / p.cell_m)} cells, north-up, nodata {p.nodata:g}, 256 px tiles, DEFLATE + floating-point predictor, elevations rounded to 1 cm (range {s['zmin']:.2f} to {s['zmax']:.2f} m) |
 | `centrelines.gpkg` | layer `centrelines`: two LineStrings drawn upstream -> downstream, vertices every ~{p.vertex_m:g} m; fields `reach_id`, `name` |
 | `landcover.gpkg` | layer `landcover`: polygons covering the whole DEM extent without gaps or overlaps; field `cover` |
+| `dem_lidar.tif` | the first meander of the main river as a LiDAR flight records it (below); same format, {s['lidar']['shape'][1]} x {s['lidar']['shape'][0]} cells |
+| `lidar.gpkg` | layers `centreline` (that stretch of `main`, fields `reach_id`, `name`) and `survey` ({s['lidar']['survey_points']} surveyed ground points, field `z_m`) |
 
 CRS: EPSG:{p.epsg} (WGS 84 / UTM zone 30N), metres; vertical unit metres (invented datum).
 Extent: E {e0:.0f}-{e0 + p.width_m:.0f}, N {n0:.0f}-{n0 + p.height_m:.0f}
@@ -662,8 +672,116 @@ def landcover_rows(s: dict) -> str:
     return rows + """
 Manning's n per class is set in `configs/demo.toml` (Chow 1959, Table 5-6, "normal" column, with
 the minimum and maximum as the low and high values for sensitivity runs).
-
+""" + readme_lidar(s) + """
 Results computed on this scenario are screening-level 1D steady estimates for a made-up valley.
+"""
+
+
+# ----------------------------------------------------------------------------- LiDAR-like variant
+# The first meander of the main river as a LiDAR flight records it: where the flight-day flow covers
+# the channel the DEM holds the flat water surface, not the bed. A handful of surveyed cross-sections
+# of the true channel (sampled from the true DEM) go with it. No random numbers are drawn here.
+FLOWN_Q = 10.0                               # m3/s in the main river on the flight day (invented)
+LIDAR_BOX = (0.0, 1100.0, -380.0, 380.0)     # local x west/east, y south/north of the valley axis
+SURVEY_CHAINAGES = (20.0, 280.0, 540.0, 800.0, 1060.0)   # m along the stretch (it is 1063.8 m long)
+SURVEY_HALF_WIDTH, SURVEY_STEP = 14.0, 1.0   # m: points from 14 m left to 14 m right of the centreline
+
+
+def flown_depth(p: Params, lay: Layout) -> float:
+    """Depth (m) of the flight-day flow in the design trapezoid, Manning normal depth (brentq)."""
+    from scipy.optimize import brentq
+
+    spec = p.main
+    bottom, side = 2 * spec["bottom_half"], (spec["top_half"] - spec["bottom_half"]) / (
+        spec["below_fp"] + spec["levee"])
+
+    def excess(h):
+        area, perim = (bottom + side * h) * h, bottom + 2 * h * np.hypot(1.0, side)
+        return area * (area / perim) ** (2 / 3) * np.sqrt(lay.bed_slope_main) / p.n_channel - FLOWN_Q
+    return float(brentq(excess, 1e-6, 10.0, xtol=1e-10))
+
+
+def lidar_stretch(lay: Layout) -> np.ndarray:
+    """Vertices of the main river over its first meander wavelength (down-valley at both ends)."""
+    return lay.main[chainage(lay.main) <= lay.wavelength + 1e-9]
+
+
+def lidar_dem(p: Params, lay: Layout, z: np.ndarray) -> tuple[np.ndarray, float, float, int]:
+    """The DEM cut to LIDAR_BOX with the main channel filled to the flight-day water surface.
+
+    The water surface is the bed line plus the flown depth at the chainage of the nearest
+    centreline point; only channel cells below it are raised. Returns (z, west, north in local
+    metres, number of cells raised).
+    """
+    x0, x1, s0, n0 = LIDAR_BOX
+    north, south = p.axis_y + n0, p.axis_y + s0
+    r0, r1 = int(round((p.height_m - north) / p.cell_m)), int(round((p.height_m - south) / p.cell_m))
+    c0, c1 = int(round(x0 / p.cell_m)), int(round(x1 / p.cell_m))
+    crop = z[r0:r1, c0:c1].astype(np.float64)
+    x, y = grid_centres(p)
+    X, Y = np.meshgrid(x[c0:c1], y[r0:r1])
+    main_ext, off = extend_line(lay.main, 60.0, 60.0)
+    d, s = (a.reshape(X.shape) for a in nearest_on_line(main_ext, np.column_stack([X.ravel(), Y.ravel()]),
+                                                       off, 300.0))
+    water = lay.bed_main(np.nan_to_num(s)) + flown_depth(p, lay)
+    flooded = np.isfinite(d) & (d < p.main["top_half"]) & (crop < water)
+    return np.round(np.where(flooded, water, crop), 2).astype(np.float32), x0, north, int(flooded.sum())
+
+
+def survey_points(p: Params, lay: Layout, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Surveyed points (local xy) across the stretch at SURVEY_CHAINAGES and their ground (true DEM,
+    bilinear between cell centres, rounded to 1 cm)."""
+    line = lidar_stretch(lay)
+    s = chainage(line)
+    xy = []
+    for c in SURVEY_CHAINAGES:
+        k = min(int(np.searchsorted(s, c)), len(line) - 1)
+        tangent = line[k] - line[k - 1]
+        normal = np.array([-tangent[1], tangent[0]]) / np.hypot(*tangent)      # to the left
+        centre = np.array([np.interp(c, s, line[:, 0]), np.interp(c, s, line[:, 1])])
+        offsets = np.arange(SURVEY_HALF_WIDTH, -SURVEY_HALF_WIDTH - 1e-9, -SURVEY_STEP)
+        xy.append(centre + offsets[:, None] * normal)
+    xy = np.vstack(xy)
+    rows = (p.height_m - xy[:, 1]) / p.cell_m - 0.5
+    cols = xy[:, 0] / p.cell_m - 0.5
+    ground = ndimage.map_coordinates(z.astype(np.float64), [rows, cols], order=1)
+    return xy, np.round(ground, 2)
+
+
+def write_lidar(out: Path, p: Params, lay: Layout, z: np.ndarray) -> dict:
+    """dem_lidar.tif and lidar.gpkg (layers centreline, survey); returns numbers for the README."""
+    import geopandas as gpd
+
+    zl, west, north, raised = lidar_dem(p, lay, z)
+    write_dem(out / "dem_lidar.tif", p, zl, west=west, north=north)
+    crs = f"EPSG:{p.epsg}"
+    gpd.GeoDataFrame({"reach_id": ["main"], "name": [RIVER_NAMES[0]]},
+                     geometry=to_world(p, np.array([shapely.linestrings(lidar_stretch(lay))])), crs=crs).to_file(
+        out / "lidar.gpkg", layer="centreline", driver="GPKG")
+    xy, ground = survey_points(p, lay, z)
+    gpd.GeoDataFrame({"z_m": ground}, geometry=to_world(p, shapely.points(xy)), crs=crs).to_file(
+        out / "lidar.gpkg", layer="survey", driver="GPKG")
+    return dict(flown_depth=flown_depth(p, lay), stretch=float(chainage(lidar_stretch(lay))[-1]),
+                survey_points=len(ground), raised_cells=raised, shape=zl.shape)
+
+
+def readme_lidar(s: dict) -> str:
+    """README section on the LiDAR-like stretch and its survey."""
+    li = s["lidar"]
+    x0, x1, s0, n0 = LIDAR_BOX
+    return f"""
+## The channel the DEM cannot see (`dem_lidar.tif`, `lidar.gpkg`, configs/demo_lidar.toml)
+A LiDAR DEM shows the water surface of the day it was flown, not the river bed. `dem_lidar.tif` is
+`dem.tif` cut to the first meander of the {RIVER_NAMES[0]} (local x {x0:g}-{x1:g} m, {-s0:g} m south to
+{n0:g} m north of the valley axis) with the channel filled up to the water surface of an invented
+flight day: {FLOWN_Q:g} m3/s, {li['flown_depth']:.3f} m deep in the design trapezoid (Manning normal
+depth, n = {Params().n_channel:g}), so {li['raised_cells']} channel cells hold a flat water surface instead of the bed.
+Layer `centreline` of `lidar.gpkg` is that stretch of `main` ({li['stretch']:.1f} m, one meander
+wavelength). Layer `survey` holds {len(SURVEY_CHAINAGES)} surveyed cross-sections of the true channel at
+chainages {", ".join(f"{c:g}" for c in SURVEY_CHAINAGES)} m of the stretch: points every
+{SURVEY_STEP:g} m from {SURVEY_HALF_WIDTH:g} m left to {SURVEY_HALF_WIDTH:g} m right of the centreline,
+`z_m` = the true ground (`dem.tif`, bilinear), rounded to 1 cm. The outer points lie on the banks beyond
+the channel, where geoflow checks the survey's datum against the DEM.
 """
 
 
@@ -678,6 +796,7 @@ def generate(out: Path, seed: int = DEFAULT_SEED, params: Params | None = None) 
     write_dem(out / "dem.tif", p, z)
     write_vectors(out, p, lay, lc_geoms, lc_classes)
     s = summary(p, lay, z, lc_geoms, lc_classes, seed)
+    s["lidar"] = write_lidar(out, p, lay, z)
     (out / "README.md").write_text(readme_text(p, s), encoding="utf-8")
     return s
 

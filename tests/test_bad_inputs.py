@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 import rasterio
 from shapely.geometry import LineString, Point
-from valleys import make_valley, write_config
+from valleys import make_valley, write_config, write_survey
 
 from geoflow.cli import main
 
@@ -228,7 +228,75 @@ def _managed_folder_links_outside(tmp, v, cfg):
     (tmp / "out" / "rasters").symlink_to(tmp / "elsewhere")
 
 
+def _channel(cfg, text):
+    cfg.write_text(cfg.read_text() + "\n[channel]\n" + text + "\n")
+
+
+def _survey_without_z_m(tmp, v, cfg):
+    rewrite_layer(write_survey(tmp, v, [100.0]), "survey", lambda g: g.rename(columns={"z_m": "elev"}))
+    _channel(cfg, 'survey = "survey.gpkg"')
+
+
+def _survey_z_m_empty(tmp, v, cfg):
+    def blank(g):
+        g["z_m"] = g["z_m"].astype(object)
+        g.loc[3, "z_m"] = None
+        return g
+    rewrite_layer(write_survey(tmp, v, [100.0]), "survey", blank)
+    _channel(cfg, 'survey = "survey.gpkg"')
+
+
+def _survey_points_near_no_reach(tmp, v, cfg):
+    write_survey(tmp, v, [100.0], extra_xy=[(v.x0 + v.length + 150.0, v.yc), (v.x0 + 50.0, v.yc + 90.0)])
+    _channel(cfg, 'survey = "survey.gpkg"')
+
+
+def _survey_of_lines(tmp, v, cfg):
+    gpd.GeoDataFrame({"z_m": [50.0]}, geometry=[LineString([(v.x0 + 50, v.yc - 10), (v.x0 + 50, v.yc + 10)])],
+                     crs="EPSG:32630").to_file(tmp / "survey.gpkg", layer="survey", driver="GPKG")
+    _channel(cfg, 'survey = "survey.gpkg"')
+
+
+def _survey_not_found(tmp, v, cfg):
+    _channel(cfg, 'survey = "surveys.gpkg"')
+
+
+def _shape_zero_width(tmp, v, cfg):
+    _channel(cfg, "shape = { bottom_width = 0.0, side_slope = 2.0, depth = 1.0 }")
+
+
+def _shape_depth_and_flow(tmp, v, cfg):
+    _channel(cfg, "shape = { bottom_width = 8.0, side_slope = 2.0, depth = 1.0, flow_at_survey = 5.0 }")
+
+
+def _shape_negative_side_slope(tmp, v, cfg):
+    _channel(cfg, "shape = { bottom_width = 8.0, side_slope = -1.0, depth = 1.0 }")
+
+
+def _flow_at_survey_no_depth_carries(tmp, v, cfg):
+    _channel(cfg, "shape = { bottom_width = 8.0, side_slope = 2.0, flow_at_survey = 4000.0 }")
+
+
+def _channel_reach_unknown(tmp, v, cfg):
+    _channel(cfg, "[channel.reaches.r9]\nshape = { bottom_width = 8.0, side_slope = 2.0, depth = 1.0 }")
+
+
+def _channel_table_empty(tmp, v, cfg):
+    _channel(cfg, "")
+
+
 CASES = [
+    ("survey_without_z_m", _survey_without_z_m, ["survey.gpkg", "'z_m'", "not found"]),
+    ("survey_z_m_empty", _survey_z_m_empty, ["survey.gpkg", "'z_m'", "feature 3"]),
+    ("survey_points_near_no_reach", _survey_points_near_no_reach, ["survey.gpkg", "2 survey point(s)", "feature 73", "feature 74"]),
+    ("survey_of_lines", _survey_of_lines, ["survey.gpkg", "point layer"]),
+    ("survey_not_found", _survey_not_found, ["[channel] survey", "not found"]),
+    ("shape_zero_width", _shape_zero_width, ["[channel] shape bottom_width", "greater than 0"]),
+    ("shape_depth_and_flow", _shape_depth_and_flow, ["[channel] shape", "not both"]),
+    ("shape_negative_side_slope", _shape_negative_side_slope, ["[channel] shape side_slope", "0 or more"]),
+    ("flow_at_survey_too_large", _flow_at_survey_no_depth_carries, ["r1", "flow_at_survey = 4000", "wider than"]),
+    ("channel_reach_unknown", _channel_reach_unknown, ["[channel.reaches.r9]", "not in"]),
+    ("channel_table_empty", _channel_table_empty, ["[channel]", "neither survey nor shape"]),
     ("out_dot_centrelines_named_sections_gpkg", _out_dot_and_centrelines_named_like_an_output,
      ["[reaches] centrelines", "overwrite"]),
     ("section_lines_inside_output", _section_lines_inside_the_output_folder, ["[sections] lines", "overwrite"]),
@@ -286,3 +354,41 @@ def test_bad_input_is_one_line_exit_2_at_check_and_run_nothing_written(tmp_path,
         for w in words:
             assert w in err, (command[0], w, err)
         assert snapshot(tmp_path) == before, f"{command[0]} wrote or changed files"
+
+
+def _bom(tmp, v, cfg):
+    cfg.write_bytes(b"\xef\xbb\xbf" + cfg.read_bytes())
+
+
+def _crlf(tmp, v, cfg):
+    cfg.write_bytes(cfg.read_text().replace("\n", "\r\n").encode("utf-8"))
+
+
+def _geojson_centrelines(tmp, v, cfg):
+    gpd.read_file(v.centrelines).to_file(tmp / "cl.geojson", driver="GeoJSON")
+    edit(cfg, 'centrelines = "centrelines.gpkg"', 'centrelines = "cl.geojson"')
+
+
+def _shapefile_landcover(tmp, v, cfg):
+    gpd.read_file(v.landcover).to_file(tmp / "lc.shp")
+    edit(cfg, 'landcover = "landcover.gpkg"', 'landcover = "lc.shp"')
+
+
+AWKWARD_BUT_VALID = [("byte_order_mark", _bom), ("windows_line_ends", _crlf),
+                     ("geojson_centrelines", _geojson_centrelines), ("shapefile_landcover", _shapefile_landcover)]
+
+
+@pytest.mark.parametrize("mutate", [c[1] for c in AWKWARD_BUT_VALID], ids=[c[0] for c in AWKWARD_BUT_VALID])
+def test_awkward_but_valid_inputs_are_accepted(tmp_path, capsys, mutate):
+    v = make_valley(tmp_path, length=400.0, half_width=60.0, classes=("channel", "grass"))
+    cfg = write_config(tmp_path, v, discharge=20.0, n=0.03, classes={"channel": 0.03, "grass": 0.04})
+    mutate(tmp_path, v, cfg)
+    assert main(["check", str(cfg)]) == 0, capsys.readouterr().err
+
+
+@pytest.mark.parametrize("argv", [["run", "x.toml", "--workers", "x"], [], ["frob"], ["run"]])
+def test_command_line_mistakes_are_one_line(argv, capsys):
+    with pytest.raises(SystemExit) as exc:
+        main(argv)
+    err = capsys.readouterr().err.strip()
+    assert exc.value.code == 2 and len(err.splitlines()) == 1 and "--help" in err, err

@@ -1,4 +1,4 @@
-"""Bank stations by break in slope: hand profiles and analytic trapezoids sampled from GeoTIFF DEMs."""
+"""Channel edges by break in slope: hand profiles and analytic trapezoids sampled from GeoTIFF DEMs."""
 from __future__ import annotations
 
 import numpy as np

@@ -36,8 +36,8 @@ PURE = {
     "geoflow.records": {"numpy", "shapely"},
     "geoflow.config": {"numpy"},
     "geoflow.hydraulics": {"numpy", "scipy", "numba"},
-    "geoflow.sections": {"numpy", "shapely"},
-    "geoflow.roughness": {"numpy", "shapely"},
+    "geoflow.sections": {"numpy", "shapely", "scipy"},
+    "geoflow.roughness": {"numpy", "scipy", "shapely"},       # scipy: least-squares n multipliers (fit)
 }
 STDLIB = set(sys.stdlib_module_names)
 

@@ -240,3 +240,61 @@ def test_random_terrain_matches_whole_array_labelling(seed, block, level):
     np.testing.assert_array_equal(np.isfinite(got.depth), kept)
     np.testing.assert_allclose(got.depth[kept], level - z[kept], atol=1e-6)
     assert got.wet_area_m2 == kept.sum()
+
+
+# ---------------------------------------------------------------- the channel below the DEM surface
+# The sections cut a trapezoid (bottom 4 m, side slope 1) into the flat 10 m bed of the channel along
+# row 160, deeper downstream: 0.8, 1.2, 1.6 m at x = 0, 128, 256 (geoflow.sections.burn). Reference: the
+# lowering of each cell written out here: each section's cut at the cell's offset from the channel
+# centre, linear in x between the sections (parallel sections, fixed channel edges, so equal
+# normalised station is equal offset), plus the analytic depth above.
+CUT_DEPTHS = [0.8, 1.2, 1.6]
+
+
+def channel_ground(station):
+    """Ground along a section line (station from its top end, 5 m north of the DEM): the analytic channel."""
+    return np.clip((np.abs(station - 165.0) - 5.0) / 2.0, 0.0, 3.0)
+
+
+def make_cut_geom() -> ReachGeometry:
+    from geoflow.records import CHANNEL, LEFT_FLOODPLAIN, RIGHT_FLOODPLAIN
+    from geoflow.sections.burn import cut_trapezoid
+    geom = make_geom()
+    secs = []
+    for s, depth in zip(geom.sections, CUT_DEPTHS):
+        st = np.arange(0.0, s.line.length + 1e-9, 0.5)
+        mid = 0.5 * (st[:-1] + st[1:])
+        part = np.where(mid < 154, LEFT_FLOODPLAIN, np.where(mid > 176, RIGHT_FLOODPLAIN, CHANNEL)).astype(np.int8)
+        sec = Section(reach_id="rb", section_id=s.section_id, chainage=s.chainage, line=s.line, station=st,
+                      elevation=channel_ground(st), n=np.full(mid.size, 0.03), part=part)
+        secs.append(cut_trapezoid(sec, bottom_width=4.0, side_slope=1.0, depth=depth))
+    return ReachGeometry(reach_id="rb", centreline=geom.centreline, sections=tuple(secs), lengths=geom.lengths)
+
+
+def expected_cut_depth() -> np.ndarray:
+    dy = np.abs(np.arange(H) + 0.5 - 160.0)
+    x = np.arange(W) + 0.5
+    at_sections = [np.where(dy <= 5.0, np.clip(d - np.clip(dy - 2.0, 0.0, None), 0.0, None), 0.0) for d in CUT_DEPTHS]
+    lowering = np.array([np.interp(x, XS, [a[r] for a in at_sections]) for r in range(H)])
+    base = expected_depth()
+    return np.where(np.isfinite(base), base + lowering, np.nan)
+
+
+@pytest.fixture(scope="module")
+def whole_cut(dem):
+    return map_reach(dem, make_cut_geom(), np.array(LEVELS))
+
+
+def test_channel_cut_lowers_the_mapped_ground(whole_cut):
+    np.testing.assert_allclose(whole_cut.depth, expected_cut_depth(), atol=1e-5, equal_nan=True)
+    assert whole_cut.max_depth == pytest.approx(LEVELS[-1] + CUT_DEPTHS[-1], abs=0.01)
+
+
+@pytest.mark.parametrize("block", [16, 37, 64])
+def test_channel_cut_blocks_equal_in_memory(dem, whole_cut, tmp_path, block):
+    m = map_reach(dem, make_cut_geom(), np.array(LEVELS), block=block)
+    np.testing.assert_array_equal(m.depth, whole_cut.depth)
+    paths = {"wse": tmp_path / "wse.tif", "depth": tmp_path / "depth.tif"}
+    s = write_reach_maps(dem, make_cut_geom(), np.array(LEVELS), paths, block=block)
+    np.testing.assert_array_equal(read(paths["depth"])[0], whole_cut.depth)
+    assert s.max_depth == whole_cut.max_depth and s.wet_area_m2 == whole_cut.wet_area_m2

@@ -142,17 +142,19 @@ def test_sections_gpkg_roundtrip_and_replace(tmp_path):
 
 def test_extent_gpkg_roundtrip(tmp_path):
     sq = Polygon([(0, 0), (10, 0), (10, 10), (0, 10)])
-    gdf = gpd.GeoDataFrame({"reach_id": ["r1", "r1"], "event": ["q10", "q100"]},
+    gdf = gpd.GeoDataFrame({"reach_id": ["r1", "r1"], "event": ["q10", "q100"], "roughness_case": ["normal", "high"]},
                            geometry=[sq, sq.buffer(1.0)], crs="EPSG:32633")
     path = write_extent_gpkg(tmp_path / "inundation.gpkg", gdf)
     assert [name for name, _ in pyogrio.list_layers(path)] == ["extent"]
     back = gpd.read_file(path, layer="extent")
     assert list(back["event"]) == ["q10", "q100"] and back.crs.to_epsg() == 32633
+    assert list(back["roughness_case"]) == ["normal", "high"]
     np.testing.assert_allclose(back.area, gdf.area)
 
 
 def test_gpkg_without_crs_rejected(tmp_path):
-    gdf = gpd.GeoDataFrame({"reach_id": ["r1"], "event": ["e"]}, geometry=[Polygon([(0, 0), (1, 0), (1, 1)])])
+    gdf = gpd.GeoDataFrame({"reach_id": ["r1"], "event": ["e"], "roughness_case": ["normal"]},
+                           geometry=[Polygon([(0, 0), (1, 0), (1, 1)])])
     with pytest.raises(OutputError, match="CRS"):
         write_extent_gpkg(tmp_path / "e.gpkg", gdf)
     assert not (tmp_path / "e.gpkg").exists()
@@ -183,7 +185,6 @@ def test_every_flag_word_the_code_can_emit_is_documented():
         emitted |= set(re.findall(r'\.append\("([a-z]+_[a-z_]+)"(?:\)| if )', text))
         emitted |= set(re.findall(r'else "([a-z]+_[a-z_]+)"\)', text))
         emitted |= set(re.findall(r'\(\("(storage)",\)', text))
-    emitted -= {"critical_assumed"}          # renamed to critical_fallback with the solver kernel
     assert emitted, "the scan found no flag words"
     assert emitted <= set(FLAGS), sorted(emitted - set(FLAGS))
 
@@ -196,3 +197,38 @@ def test_readme_flag_table_is_the_generated_one():
     text = (Path(__file__).resolve().parents[1] / "README.md").read_text()
     start, end = "<!-- flags:start -->\n", "<!-- flags:end -->"
     assert text[text.index(start) + len(start):text.index(end)] == markdown_table()
+
+
+def test_raster_metadata_survives_the_cog_copy(tmp_path):
+    """Units, band description and the caution are GDAL metadata read back with rasterio (reference
+    reader), for both writers: in memory (write_raster) and block-wise (block_raster_writer)."""
+    from rasterio.windows import Window
+
+    from geoflow.constants import CAUTION
+    meta = outputs.raster_metadata("velocity", CAUTION, reach_id="r1", event="q100")
+    a = write_raster(tmp_path / "v.tif", np.ones((300, 280)), TRANSFORM, CRS_UTM, meta=meta)
+    with outputs.block_raster_writer(tmp_path / "b.tif", 280, 300, TRANSFORM, CRS_UTM, meta=meta) as w:
+        w(np.ones((300, 280)), Window(0, 0, 280, 300))
+    for path in (a, tmp_path / "b.tif"):
+        with rasterio.open(path) as ds:
+            assert ds.tags(ns="IMAGE_STRUCTURE").get("LAYOUT") == "COG"
+            tags = ds.tags()
+            assert tags["units"] == "m/s" and tags["caution"] == CAUTION
+            assert tags["reach_id"] == "r1" and tags["event"] == "q100"
+            assert ds.units == ("m/s",) and ds.tags(1)["units"] == "m/s"
+            assert ds.descriptions[0].startswith("depth-averaged velocity") and "(m/s)" in ds.descriptions[0]
+
+
+def test_geopackage_layers_carry_a_description_and_the_caution(tmp_path):
+    """The layer description is the GeoPackage standard's gpkg_contents.description (read with
+    sqlite3, the reference reader); the caution is layer metadata (read with pyogrio)."""
+    import sqlite3
+
+    from geoflow.constants import CAUTION
+    gdf = gpd.GeoDataFrame({"reach_id": ["r1"], "event": ["q"], "roughness_case": ["normal"], "area_m2": [1.0]},
+                           geometry=[Polygon([(0, 0), (1, 0), (1, 1)])], crs=CRS_UTM.to_wkt())
+    path = write_extent_gpkg(tmp_path / "inundation.gpkg", gdf)
+    with sqlite3.connect(path) as db:
+        (desc,) = db.execute("SELECT description FROM gpkg_contents WHERE table_name = 'extent'").fetchone()
+    assert desc == outputs.LAYER_MEANING["extent"] and "m2" in desc
+    assert pyogrio.read_info(path, layer="extent")["layer_metadata"]["caution"] == CAUTION

@@ -20,7 +20,9 @@ import shapely
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLE = ROOT / "sample_gis"
-COMMITTED = ("make_demo.py", "README.md", "dem.tif", "centrelines.gpkg", "landcover.gpkg")
+COMMITTED = ("make_demo.py", "README.md", "dem.tif", "centrelines.gpkg", "landcover.gpkg", "dem_lidar.tif",
+             "lidar.gpkg")
+LIDAR_FILES = ("dem_lidar.tif", "lidar.gpkg")
 
 
 def _load_generator():
@@ -46,11 +48,12 @@ def _read_dem(path: Path):
         return src.read(1), src.profile, src.tags(ns="IMAGE_STRUCTURE")
 
 
-def test_dem_regenerates_exactly(regenerated):
+@pytest.mark.parametrize("name", ["dem.tif", "dem_lidar.tif"])
+def test_dem_regenerates_exactly(regenerated, name):
     """Same seed, same DEM: the committed raster is reproduced cell for cell."""
     out, _ = regenerated
-    committed, prof_c, _ = _read_dem(SAMPLE / "dem.tif")
-    fresh, prof_f, _ = _read_dem(out / "dem.tif")
+    committed, prof_c, _ = _read_dem(SAMPLE / name)
+    fresh, prof_f, _ = _read_dem(out / name)
     np.testing.assert_array_equal(committed, fresh)
     for key in ("crs", "transform", "nodata", "width", "height", "dtype"):
         assert prof_c[key] == prof_f[key], key
@@ -77,6 +80,8 @@ def _vector(path: Path, layer: str) -> gpd.GeoDataFrame:
 @pytest.mark.parametrize("name,layer,fields", [
     ("centrelines.gpkg", "centrelines", ["reach_id", "name"]),
     ("landcover.gpkg", "landcover", ["cover"]),
+    ("lidar.gpkg", "centreline", ["reach_id", "name"]),
+    ("lidar.gpkg", "survey", ["z_m"]),
 ])
 def test_vectors_regenerate_exactly(regenerated, name, layer, fields):
     """Same seed, same centrelines and land cover (attributes and geometry)."""
@@ -85,6 +90,12 @@ def test_vectors_regenerate_exactly(regenerated, name, layer, fields):
     assert committed.crs == fresh.crs
     assert committed[fields].equals(fresh[fields])
     assert shapely.equals_exact(committed.geometry.values, fresh.geometry.values, 1e-6).all()
+
+
+def test_readme_regenerates_exactly(regenerated):
+    """sample_gis/README.md holds the numbers the generator computes (it writes the file)."""
+    out, _ = regenerated
+    assert (SAMPLE / "README.md").read_text(encoding="utf-8") == (out / "README.md").read_text(encoding="utf-8")
 
 
 def _sample(path: Path, xy: np.ndarray) -> np.ndarray:
@@ -127,9 +138,44 @@ def test_landcover_partitions_extent():
 
 
 def test_committed_files_small():
-    """The committed demo files stay under 5 MB."""
+    """The committed demo files stay under 5 MB, the LiDAR-like stretch under 400 kB."""
     total = sum((SAMPLE / f).stat().st_size for f in COMMITTED)
     assert total < 5 * 1024**2
+    assert sum((SAMPLE / f).stat().st_size for f in LIDAR_FILES) < 400 * 1024
+
+
+def test_lidar_dem_shows_a_flat_water_surface_over_the_channel():
+    """dem_lidar.tif is dem.tif over the first meander, except channel cells raised (never lowered) to the
+    water level of the flight day: the bed line plus the flown depth, a flat level across the channel."""
+    gen = _load_generator()
+    lidar, prof, _ = _read_dem(SAMPLE / "dem_lidar.tif")
+    with rasterio.open(SAMPLE / "dem.tif") as src:
+        window = rasterio.windows.from_bounds(*rasterio.transform.array_bounds(prof["height"], prof["width"],
+                                                                               prof["transform"]), src.transform)
+        true = src.read(1, window=window)
+    raised = lidar != true
+    assert np.all(lidar[raised] > true[raised])
+    assert 2000 < raised.sum() < 10000                                  # a 15 m wide strip over ~1 km
+    cover = _vector(SAMPLE / "landcover.gpkg", "landcover")
+    channel = shapely.union_all(cover.geometry[cover["cover"] == "channel"].values)
+    rows, cols = np.nonzero(raised)
+    xs, ys = rasterio.transform.xy(prof["transform"], rows, cols)
+    assert shapely.contains_xy(channel, xs, ys).all()                   # only inside the channel
+    # across the channel the raised cells share one level: within 2 cm of their neighbours along a row
+    level = np.where(raised, lidar, np.nan)
+    step = np.abs(np.diff(level, axis=1))
+    assert np.nanmax(step) <= 0.02 + 1e-6
+    assert gen.FLOWN_Q == 10.0
+
+
+def test_lidar_demo_config_uses_the_survey_everywhere():
+    """configs/demo_lidar.toml passes `geoflow check`; every section's channel comes from the survey."""
+    import geoflow
+    result = geoflow.check(ROOT / "configs" / "demo_lidar.toml")
+    geom = result.geometries["main"]
+    assert {s.bed_source for s in geom.sections} == {"survey"}
+    assert len(geom.channel["survey"]["sections"]) == 5
+    assert abs(geom.channel["survey"]["dem_minus_survey"]["median_m"]) < 0.02   # same datum
 
 
 def test_demo_config_matches_generated_numbers(regenerated):

@@ -5,6 +5,7 @@ give byte-identical tables whichever engine computed the reaches and in whatever
 """
 from __future__ import annotations
 
+import os
 import time
 
 import geopandas as gpd
@@ -14,13 +15,14 @@ import rasterio
 import shapely
 from shapely.geometry import box
 
-from .. import outputs
+from .. import __version__, outputs
 from ..config import Config
+from ..constants import CAUTION
 from ..mapping import mosaic_max
 from ..naming import safe_name
 from .layout import MANIFEST_NAME, relative_name, unrecorded_files
-from .manifest import Manifest, part_paths, unit_key
-from .tasks import read_profile_parts
+from .manifest import Manifest, calibration_entry, part_paths, unit_key
+from .tasks import INDEX_NAME, read_profile_parts
 
 
 def finish(cfg: Config, inputs, man: Manifest, result) -> None:
@@ -42,9 +44,20 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
     sections = _sections(cfg, order, profile, crs)
     result.paths["sections"] = outputs.write_sections_gpkg(out / "sections.gpkg", sections)
     man.data["sections_crossing_other_reaches"] = cross_reach_crossings(sections)
-    if "extent" in cfg.mapping.outputs:
-        result.paths["extent"] = outputs.write_extent_gpkg(out / "inundation.gpkg", _extents(cfg, done, crs))
+    extents = _extents(cfg, done, crs) if "extent" in cfg.mapping.outputs else None
+    if extents is not None:
+        result.paths["extent"] = outputs.write_extent_gpkg(out / "inundation.gpkg", extents)
     result.paths.update(_mosaics(cfg, done))
+    result.paths.update(_spreads(cfg, done))
+    result.paths.update(_reach_tables(cfg, order, man))
+    if cfg.structures:
+        result.paths["structures"] = outputs.write_structures_csv(out / "structures.csv", _structures(cfg, done))
+    if cfg.calibration is not None:
+        man.data["calibration"] = calibration_entry(cfg, man.data["reaches"])
+    if "report" in cfg.mapping.outputs:
+        t0 = time.perf_counter()
+        result.paths["report_index"] = _write_index(cfg, inputs, man, result, profile, sections, extents)
+        man.data["report_index_s"] = round(time.perf_counter() - t0, 3)
     man.data["files"] = sorted(relative_name(out, f) for f in result.paths.values())
     recorded = man.recorded_files() | {MANIFEST_NAME}
     man.data["stale_files"] = unrecorded_files(out, recorded)
@@ -58,6 +71,26 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
                                 events={e.name: units[unit_key(rid, e.name)] for e in cfg.events
                                         if unit_key(rid, e.name) in units})
                       for rid in order}
+
+
+def _write_index(cfg: Config, inputs, man: Manifest, result, profile, sections, extents):
+    """report/index.html: every reach and event with status, flags and links (see geoflow.report.index)."""
+    from .. import report
+    out = cfg.run.output_dir
+    rdir = out / "report"
+    pages = {rid: f"{safe_name(rid)}.html" for rid in man.data["reaches"] if (rdir / f"{safe_name(rid)}.html").is_file()}
+    outlines = {} if extents is None else {(str(r), str(e)): g for r, e, g in
+                                           zip(extents["reach_id"], extents["event"], extents.geometry)}
+    lines = {(str(r), int(s)): g for r, s, g in zip(sections["reach_id"], sections["section_id"], sections.geometry)}
+    files = [(relative_name(out, p), os.path.relpath(p, rdir)) for k, p in sorted(result.paths.items())
+             if k != "report_index"] + [(MANIFEST_NAME, os.path.relpath(out / MANIFEST_NAME, rdir))]
+    order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)
+    run = report.RunPage(run_facts=report.run_facts(cfg, inputs.dem), events=[e.name for e in cfg.events],
+                         reaches={rid: man.data["reaches"].get(rid, {"status": "failed"}) for rid in order},
+                         units=man.data["units"], profile=profile, outlines=outlines,
+                         centrelines=dict(inputs.reaches), section_lines=lines, pages=pages, files=files,
+                         crossings=list(man.data.get("sections_crossing_other_reaches", [])))
+    return report.write_index(rdir / INDEX_NAME, run, caution=CAUTION)
 
 
 def cross_reach_crossings(sections: gpd.GeoDataFrame) -> list[str]:
@@ -93,8 +126,57 @@ def _mosaics(cfg: Config, done: dict[str, list[str]]) -> dict:
             tifs = _overlapping([t for t in tifs if t.is_file()])
             if len(tifs) >= 2:
                 path = cfg.run.output_dir / "mosaic" / f"{safe_name(ev.name)}_max_{kind}.tif"
-                written[f"mosaic_{ev.name}_{kind}"] = mosaic_max(tifs, path)
+                meta = outputs.raster_metadata(kind, CAUTION, event=ev.name, run=cfg.run.name,
+                                               geoflow_version=__version__, config_sha256=cfg.sha256,
+                                               combined="largest value of the overlapping reach rasters")
+                written[f"mosaic_{ev.name}_{kind}"] = mosaic_max(tifs, path, meta=meta)
     return written
+
+
+def _spreads(cfg: Config, done: dict[str, list[str]]) -> dict:
+    """uncertainty/<event>_wse_spread.tif: high-minus-low WSE of every reach (the larger where reaches overlap)."""
+    written = {}
+    for ev in cfg.events:
+        tifs = [part_paths(cfg.run.output_dir, safe_name(rid), safe_name(ev.name))["spread"]
+                for rid, events in done.items() if ev.name in events]
+        tifs = [t for t in tifs if t.is_file()]
+        if tifs:
+            path = cfg.run.output_dir / "uncertainty" / f"{safe_name(ev.name)}_wse_spread.tif"
+            written[f"spread_{ev.name}"] = mosaic_max(tifs, path)
+    return written
+
+
+def _reach_tables(cfg: Config, order: list[str], man: Manifest) -> dict:
+    """calibration.csv and rating_curves.csv from the per-reach parts of complete reaches."""
+    written = {}
+    specs = (("calibration", cfg.calibration, "calibration.csv", outputs.write_calibration_csv,
+              outputs.CALIBRATION_COLUMNS),
+             ("ratings", cfg.rating_curves, "rating_curves.csv", outputs.write_rating_csv, outputs.RATING_COLUMNS))
+    for key, wanted, name, write, columns in specs:
+        if wanted is None:
+            continue
+        frames = []
+        for rid in order:
+            path = part_paths(cfg.run.output_dir, safe_name(rid))[key]
+            if man.data["reaches"].get(rid, {}).get("status") == "complete" and path.is_file():
+                frames.append(pd.read_csv(path, keep_default_na=False, na_values=[""],
+                                          dtype={"reach_id": str, "event": str, "flags": str, "regime": str}))
+        table = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame({c: [] for c in columns})
+        written[key] = write(cfg.run.output_dir / name, table)
+    return written
+
+
+def _structures(cfg: Config, done: dict[str, list[str]]) -> pd.DataFrame:
+    """structures.csv: the per reach x event parts of the complete units, in reach and event order."""
+    frames = []
+    for rid, events in done.items():
+        for ev in events:
+            path = part_paths(cfg.run.output_dir, safe_name(rid), safe_name(ev))["structures"]
+            if path.is_file():
+                frames.append(pd.read_csv(path, keep_default_na=False, na_values=[""],
+                                          dtype={"reach_id": str, "structure_id": str, "event": str,
+                                                 "roughness_case": str, "control": str, "flags": str}))
+    return pd.concat(frames, ignore_index=True) if frames else outputs.empty_structures()
 
 
 def _overlapping(tifs: list) -> list:
@@ -120,7 +202,8 @@ def _sections(cfg: Config, order: list[str], profile: pd.DataFrame, crs: str) ->
         gdf = gpd.read_file(path, layer="sections")
         gdf["reach_id"] = gdf["reach_id"].astype(str)
         gdf["flags"] = gdf["flags"].fillna("")
-        mine = profile[profile["reach_id"] == rid] if len(profile) else profile
+        mine = profile[(profile["reach_id"] == rid) & (profile["roughness_case"] == "normal")] if len(profile) \
+            else profile
         for ev in cfg.events:
             rows = mine[mine["event"] == ev.name] if len(mine) else mine
             if len(rows):
@@ -139,7 +222,11 @@ def _extents(cfg: Config, done: dict[str, list[str]], crs: str) -> gpd.GeoDataFr
             if path.is_file():
                 frames.append(gpd.read_file(path, layer="extent"))
     if not frames:
-        return gpd.GeoDataFrame({"reach_id": [], "event": [], "area_m2": []}, geometry=[], crs=crs)
+        return gpd.GeoDataFrame({"reach_id": [], "event": [], "roughness_case": [], "area_m2": []}, geometry=[],
+                                crs=crs)
     gdf = pd.concat(frames, ignore_index=True)
     gdf["reach_id"] = gdf["reach_id"].astype(str)
+    if "roughness_case" not in gdf:                 # parts written before roughness cases existed
+        gdf.insert(2, "roughness_case", "normal")
+    gdf["roughness_case"] = gdf["roughness_case"].fillna("normal")
     return gpd.GeoDataFrame(gdf, geometry="geometry", crs=crs)

@@ -9,9 +9,12 @@ from shapely.geometry import box
 from .. import layers, terrain
 from ..config import Config
 from ..config.crosscheck import input_problems, raise_problems
-from ..errors import ConfigError, GeoflowError
+from ..errors import ConfigError, GeoflowError, InputDataError
+from ..records import SurveyPoints
 from ..roughness import landcover_classes
 from ..sections import orient_centreline
+from ..sections.survey import assign_points, describe_points
+from .marks import match_marks
 
 
 @dataclass(frozen=True)
@@ -25,6 +28,8 @@ class Inputs:
     warnings: dict = field(default_factory=dict)     # reach_id -> [str] (e.g. direction reversed)
     unusable: dict = field(default_factory=dict)     # reach_id -> why its centreline cannot be used
     storage_areas: object = None                     # polygons that carry no flow ([sections] storage_areas)
+    survey: dict = field(default_factory=dict)       # reach_id -> SurveyPoints near it ([channel] survey)
+    marks: dict = field(default_factory=dict)        # reach_id -> marks.ReachMarks ([calibration] observations)
 
 
 def open_inputs(cfg: Config) -> Inputs:
@@ -52,11 +57,38 @@ def open_inputs(cfg: Config) -> Inputs:
         if unknown:
             raise ConfigError(f"{cfg.sections.lines}: section lines name reach(es) {', '.join(map(repr, unknown))} "
                               f"that are not in {cfg.reaches.centrelines.name}; fix the {cfg.reaches.id_field!r} values")
+    survey = _survey_points(cfg, dem, reaches, warnings)
+    marks = {}
+    if cfg.calibration is not None:
+        observed = layers.read_marks(cfg.calibration.observations, dem.crs, layer=cfg.calibration.layer)
+        marks = match_marks(cfg, observed, reaches)
     storage = None
     if cfg.sections.storage_areas is not None:
         storage = layers.read_polygons(cfg.sections.storage_areas, dem.crs, layer=cfg.sections.storage_areas_layer)
     return Inputs(dem=dem, reaches=tuple(reaches), cover=cover, user_lines=user, warnings=warnings, unusable=bad,
-                  storage_areas=storage)
+                  storage_areas=storage, survey=survey, marks=marks)
+
+
+def _survey_points(cfg: Config, dem, reaches, warnings: dict) -> dict[str, SurveyPoints]:
+    """[channel] survey points by reach, with the DEM ground under each; points near no reach are an error."""
+    if cfg.channel is None or cfg.channel.survey is None:
+        return {}
+    pts = layers.read_survey_points(cfg.channel.survey, dem.crs, layer=cfg.channel.survey_layer)
+    pts = SurveyPoints(pts.x, pts.y, pts.z, dem.sample(pts.x, pts.y), pts.fid, pts.source)
+    half = {rid: cfg.sections.for_reach(rid).width / 2 for rid, _ in reaches}
+    by_reach, lost = assign_points(pts, list(reaches), half)
+    if lost.size:
+        raise InputDataError(f"{pts.source}: {lost.size} survey point(s) lie farther than half the section width "
+                             f"([sections] width) from every centreline: {describe_points(pts, lost)}; delete them, "
+                             "or check their coordinates and CRS")
+    out = {}
+    for rid, idx in by_reach.items():
+        if cfg.channel.for_reach(rid).use_survey:
+            out[rid] = pts.subset(idx)
+        else:
+            warnings.setdefault(rid, []).append(f"reach {rid}: {idx.size} survey point(s) near it are not used "
+                                                f"([channel.reaches.{rid}] use_survey = false)")
+    return out
 
 
 def _oriented(rid: str, line, dem, warnings: dict):

@@ -1,6 +1,6 @@
 """Where a run writes, and the rules that keep it from touching anything else.
 
-Layout of an output folder (README "Output reference"): a few top-level files and four
+Layout of an output folder (README "Output reference"): a few top-level files and five
 sub-folders that belong to geoflow. Rules:
 
 * Inputs are sacred: no input file (or its side files) may be one of the top-level outputs or
@@ -23,8 +23,9 @@ from ..errors import ConfigError
 MANIFEST_NAME = "manifest.json"
 LOG_NAME = "run.log"
 LOCK_NAME = ".geoflow.lock"
-TOP_FILES = (MANIFEST_NAME, LOG_NAME, LOCK_NAME, "profile.csv", "sections.gpkg", "inundation.gpkg")
-MANAGED_DIRS = ("rasters", "mosaic", "report", "parts")
+TOP_FILES = (MANIFEST_NAME, LOG_NAME, LOCK_NAME, "profile.csv", "sections.gpkg", "inundation.gpkg", "calibration.csv",
+             "rating_curves.csv", "structures.csv")
+MANAGED_DIRS = ("rasters", "mosaic", "report", "parts", "uncertainty")
 PARTS_DIR = "parts"
 
 #: side files GDAL/OGR keep beside a data file (they belong to the input as much as the file)

@@ -22,6 +22,7 @@ from pathlib import Path
 from .. import __version__, outputs
 from ..config import Config
 from ..constants import CAUTION
+from ..roughness import case_factors, classes_without_range
 from .layout import MANIFEST_NAME, PARTS_DIR, relative_name, side_files
 
 
@@ -70,8 +71,10 @@ def unit_key(reach_id: str, event: str) -> str:
 def part_paths(out_dir: Path, safe_reach: str, safe_event: str | None = None) -> dict[str, Path]:
     base = Path(out_dir) / PARTS_DIR / safe_reach
     if safe_event is None:
-        return {"sections": base / "sections.gpkg"}
-    return {"profile": base / f"{safe_event}.profile.csv", "extent": base / f"{safe_event}.extent.gpkg"}
+        return {"sections": base / "sections.gpkg", "calibration": base / "calibration.csv",
+                "ratings": base / "rating_curves.csv"}
+    return {"profile": base / f"{safe_event}.profile.csv", "extent": base / f"{safe_event}.extent.gpkg",
+            "spread": base / f"{safe_event}.wse_spread.tif", "structures": base / f"{safe_event}.structures.csv"}
 
 
 @dataclass
@@ -97,11 +100,14 @@ class Manifest:
             "reaches": {},
             "units": units,
         }
+        if cfg.roughness.cases:
+            data["roughness_cases"] = roughness_cases_entry(cfg)
         return cls(path=Path(cfg.run.output_dir) / MANIFEST_NAME, data=data)
 
     def record_reach(self, reach_id: str, info: dict) -> None:
         self.data["reaches"][reach_id] = {k: info.get(k) for k in ("status", "error", "sections", "warnings",
-                                                                   "flags", "files", "timings_s")
+                                                                   "channel", "structures", "flags", "files",
+                                                                   "timings_s", "calibration")
                                           if info.get(k) is not None or k in ("status", "error")}
         for ev, unit in (info.get("events") or {}).items():
             self.data["units"][unit_key(reach_id, ev)] = unit
@@ -115,6 +121,38 @@ class Manifest:
 
     def save(self) -> None:
         outputs.write_manifest(self.path, self.data)
+
+
+def roughness_cases_entry(cfg: Config) -> dict:
+    """What the roughness cases are and which classes keep their n in each (manifest "roughness_cases")."""
+    classes = cfg.roughness.classes
+    return {"cases": list(cfg.roughness.all_cases()),
+            "rule": "every n of a class (its n and the n of its n_by_depth / n_by_discharge law) is multiplied by "
+                    "n_low / n (low) or n_high / n (high), on top of any calibration multiplier; classes without "
+                    "that value, and land-cover gaps filled with default_n, keep their n",
+            "factors": {case: {c: round(f, 6) for c, f in case_factors(classes, case).items()}
+                        for case in cfg.roughness.cases},
+            "classes_keeping_n": {case: classes_without_range(classes, case) for case in cfg.roughness.cases}}
+
+
+def calibration_entry(cfg: Config, reaches: dict) -> dict:
+    """Manifest "calibration": the settings, a run summary and, per reach with marks, its fit.
+
+    Summary: ``marks`` (all reaches), ``rmse_m`` over all marks, ``well_determined`` (every reach's fit
+    is), ``bound_hit`` (some multiplier stopped at a bound), ``multipliers`` {reach: {group: m}}.
+    """
+    cal = cfg.calibration
+    fits = {rid: r["calibration"] for rid, r in reaches.items() if r.get("calibration")}
+    marks = sum(f["marks"] for f in fits.values())
+    sse = sum(f["rmse_m"] ** 2 * f["marks"] for f in fits.values())
+    return {"observations": os.path.relpath(cal.observations, cfg.run.output_dir),
+            "adjust": [g if isinstance(g, str) else list(g) for g in cal.adjust], "bounds": list(cal.bounds),
+            "mark_accuracy_m": cal.mark_accuracy, "marks": marks,
+            "rmse_m": (sse / marks) ** 0.5 if marks else None,
+            "well_determined": bool(fits) and all(f["well_determined"] for f in fits.values()),
+            "bound_hit": any(f["bound_hit"] for f in fits.values()),
+            "multipliers": {rid: f["multipliers"] for rid, f in fits.items()},
+            "reaches": fits}
 
 
 def load_previous(out_dir: Path) -> dict | None:
@@ -185,6 +223,6 @@ def clear_stale_temporaries(out_dir: Path) -> int:
     return count
 
 
-__all__ = ["Manifest", "clear_stale_temporaries", "file_sha256", "fingerprints", "identity", "input_hashes",
+__all__ = ["Manifest", "calibration_entry", "roughness_cases_entry", "clear_stale_temporaries", "file_sha256", "fingerprints", "identity", "input_hashes",
            "kept_files", "load_previous", "part_paths", "previous_files", "relative_name", "reusable_units",
            "unit_key"]

@@ -6,6 +6,7 @@ geometry, hydraulics/ computes; mapping, outputs and reports are written by :mod
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Mapping
 
 import numpy as np
 import pandas as pd
@@ -19,6 +20,8 @@ from ..errors import GeoflowError, HydraulicsError
 from ..hydraulics import Boundary, SolverOptions, build_table
 from ..hydraulics import solve_events as hydraulics_solve_events
 from ..records import ReachGeometry
+from ..roughness.cases import scaled_classes, scaled_section
+from . import structures
 from .inputs import Inputs
 
 
@@ -27,7 +30,10 @@ def build_geometry(cfg: Config, inputs: Inputs, reach_id: str, line) -> ReachGeo
 
     Automatic sections follow the floodplain flow (dog-legs where they reach beyond the meander
     belt), stay inside the reach's own part of the valley floor (:mod:`geoflow.sections.territory`)
-    and off narrow raised strips (roads, embankments).
+    and off narrow raised strips (roads, embankments); the faces of each structure are cut at the
+    ends of its span ([[structures]]) and kept by every layout step. Then: n per segment, the
+    channel below the DEM ([channel]), storage, floodplain lengths between the floodplain legs,
+    and the structures placed between their faces.
     """
     sc = cfg.sections.for_reach(reach_id)
     if reach_id in inputs.user_lines:
@@ -40,9 +46,11 @@ def build_geometry(cfg: Config, inputs: Inputs, reach_id: str, line) -> ReachGeo
         geom = roughness.split_at_cover_edges(geom, _Polygons(inputs.storage_areas))
     geom = roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
                                       default_n=cfg.roughness.default_n, update_lengths=False)
+    geom = fit_channel(cfg, inputs, geom)
     geom = sections.mark_storage(geom, inputs.dem, areas=inputs.storage_areas, detect=cfg.sections.detect_storage,
                                  step=sc.sample_step)
     geom = dataclasses.replace(geom, lengths=sections.floodplain_lengths(geom))
+    geom = structures.place(cfg, geom, inputs.dem)
     notes = tuple(inputs.warnings.get(reach_id, ()))
     return dataclasses.replace(geom, warnings=notes + tuple(geom.warnings)) if notes else geom
 
@@ -59,7 +67,7 @@ def _cut(cfg: Config, inputs: Inputs, shared, reach_id: str, line, territory):
     sc = cfg.sections.for_reach(reach_id)
     return sections.cut_sections(reach_id, line, inputs.dem, sc.spacing, sc.width, sample_step=sc.sample_step,
                                  rise=sc.rise, layout="auto", channel=shared.channel, territory=territory,
-                                 strips=shared.strips)
+                                 strips=shared.strips, spans=structures.face_spans(cfg, reach_id))
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -124,6 +132,21 @@ def map_clip(cfg: Config, inputs: Inputs, geom: ReachGeometry):
     return territory.claim(territory.index(geom.reach_id), [s.line for s in geom.sections])
 
 
+def fit_channel(cfg: Config, inputs: Inputs, geom: ReachGeometry) -> ReachGeometry:
+    """The channel below the DEM surface from [channel] survey points and/or shape (after the edges are known)."""
+    if cfg.channel is None:
+        return geom
+    rid = geom.reach_id
+    own = cfg.channel.for_reach(rid)
+    survey = inputs.survey.get(rid)
+    if own.shape is None and survey is None:
+        return geom
+    where = f"[channel.reaches.{rid}] shape" if rid in cfg.channel.reaches and \
+        cfg.channel.reaches[rid].shape is not None else "[channel] shape"
+    n_channel = [roughness.composite_n_by_part(s)[1] for s in geom.sections]
+    return sections.fit_channel(geom, own.shape, survey, cfg.sections.for_reach(rid).spacing, n_channel, where)
+
+
 def discharge_along(event: Event, reach_id: str, chainage: np.ndarray) -> np.ndarray:
     """Discharge (m3/s) at each section: the upstream value, replaced downstream of each flow change."""
     q = np.full(chainage.shape, float(event.upstream_discharge(reach_id)))
@@ -149,38 +172,53 @@ def to_boundary(spec: BoundarySpec | None, junction_wse: np.ndarray | None = Non
     return Boundary.rating(discharge=np.asarray(spec.discharge), stage=np.asarray(spec.stage))
 
 
-def solver_options(cfg: Config) -> SolverOptions:
+def solver_options(cfg: Config, tolerance: float | None = None) -> SolverOptions:
+    """Solver settings of the config; ``tolerance`` (m) overrides the energy-balance tolerance."""
     h = cfg.hydraulics
+    extra = {} if tolerance is None else {"tolerance": tolerance}
     return SolverOptions(g=h.gravity, regime=cfg.boundary.regime, friction_slope=h.friction_slope,
-                         contraction=h.contraction, expansion=h.expansion)
+                         contraction=h.contraction, expansion=h.expansion, **extra)
 
 
-def build_tables(geom: ReachGeometry, cfg: Config | None = None, discharge: float | None = None) -> list:
+def build_tables(geom: ReachGeometry, cfg: Config | None = None, discharge: float | None = None,
+                 factors: Mapping[str, float] | None = None) -> list:
     """Hydraulic property tables of every section.
 
     With ``cfg``, classes that give ``n_by_depth`` make n vary with the local flow depth over each
     segment, and classes that give ``n_by_discharge`` take n at ``discharge`` (the event's
-    upstream discharge of the reach; tables are then built per event).
+    upstream discharge of the reach; tables are then built per event). ``factors`` {class: f}
+    multiply every n of a class, laws included (roughness cases, calibration multipliers;
+    :mod:`geoflow.roughness.cases`); the ground and the n layout of the sections are reused.
     """
     classes = {} if cfg is None else cfg.roughness.classes
-    return [build_table(s.station, s.elevation, roughness.n_at_discharge(s, classes, discharge), s.part,
-                        n_depth=roughness.n_by_depth_table(s, classes), storage=s.storage,
-                        name=f"reach {geom.reach_id!r} section {s.section_id}")
-            for s in geom.sections]
+    factors = dict(factors or {})
+    if factors:
+        classes = scaled_classes(classes, factors)
+    out = []
+    for s in geom.sections:
+        s = scaled_section(s, factors)
+        out.append(build_table(s.station, s.elevation, roughness.n_at_discharge(s, classes, discharge), s.part,
+                               n_depth=roughness.n_by_depth_table(s, classes), storage=s.storage,
+                               name=f"reach {geom.reach_id!r} section {s.section_id}"))
+    return out
 
 
 def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Event],
-                 junction_wse: dict | None = None) -> dict:
+                 junction_wse: dict | None = None, options: SolverOptions | None = None,
+                 downstream: BoundarySpec | None = None) -> dict:
     """Steady profiles of several events on one reach, solved together (vectorised across events).
 
     Returns {event name: Profile or HydraulicsError}: if the joint solve fails, each event is
     solved alone so one bad event (e.g. a discharge outside a rating table) spares the others.
+    ``downstream`` replaces the reach's downstream boundary (rating curves).
     """
     chainage = np.array([s.chainage for s in geom.sections])
     down, up = cfg.boundary.for_reach(geom.reach_id)
+    down = downstream or down
     q = np.stack([discharge_along(ev, geom.reach_id, chainage) for ev in events])
     jw = None if junction_wse is None else np.array([junction_wse[ev.name] for ev in events])
-    kw = dict(upstream=to_boundary(up), options=solver_options(cfg))
+    kw = dict(upstream=to_boundary(up), options=options or solver_options(cfg),
+              structures=structures.links(cfg, geom, tables))
     try:
         return dict(zip((ev.name for ev in events),
                         hydraulics_solve_events(tables, geom.lengths, q, downstream=to_boundary(down, jw), **kw)))
@@ -197,19 +235,22 @@ def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Ev
 
 
 def solve_reach(cfg: Config, geom: ReachGeometry, events: list[Event] | None = None,
-                junction_wse: dict | None = None) -> dict:
+                junction_wse: dict | None = None, factors: Mapping[str, float] | None = None,
+                options: SolverOptions | None = None, downstream: BoundarySpec | None = None) -> dict:
     """Steady profiles of the events (default: all) on one reach -> {event: Profile or HydraulicsError}.
 
-    Events are solved together on shared tables, unless some class's n depends on discharge:
-    then each event gets tables built with n at its own upstream discharge.
+    Events are solved together on shared tables (built once for these n ``factors``), unless some
+    class's n depends on discharge: then each event gets tables built with n at its own upstream
+    discharge.
     """
     events = list(cfg.events) if events is None else events
+    kw = dict(options=options, downstream=downstream)
     if not roughness.varies_with_discharge(cfg.roughness.classes):
-        return solve_events(cfg, geom, build_tables(geom, cfg), events, junction_wse)
+        return solve_events(cfg, geom, build_tables(geom, cfg, factors=factors), events, junction_wse, **kw)
     out = {}
     for ev in events:
-        tables = build_tables(geom, cfg, discharge=ev.upstream_discharge(geom.reach_id))
-        out.update(solve_events(cfg, geom, tables, [ev], junction_wse))
+        tables = build_tables(geom, cfg, discharge=ev.upstream_discharge(geom.reach_id), factors=factors)
+        out.update(solve_events(cfg, geom, tables, [ev], junction_wse, **kw))
     return out
 
 

@@ -30,6 +30,7 @@ from ..config.crosscheck import junction_order
 from ..constants import CAUTION
 from ..errors import GeoflowError, OutputError, is_disk_full, write_error
 from ..naming import safe_name
+from ..sections.channel import describe_channel
 from . import assemble, layout, manifest
 from .engines import engine
 from .inputs import Inputs
@@ -208,6 +209,7 @@ def _compute(plans: list[_Plan], runner, progress: bool) -> None:
         for rid, entry in p.manifest.data["reaches"].items():
             if entry.get("status") == "failed":
                 log.error("reach %s: failed validation - %s", rid, entry.get("error"))
+        _log_cases(p)
         deps = junction_order(p.cfg, list(p.todo))
         waiting.extend((p, rid, deps.get(rid) if deps.get(rid) in p.todo else None) for rid in p.todo)
     handles: dict = {}
@@ -224,6 +226,18 @@ def _compute(plans: list[_Plan], runner, progress: bool) -> None:
         _record(p, rid, runner.result(h))
         finished.add((id(p), rid))
         bar.step(f"{p.cfg.run.name}/{rid}: {p.manifest.data['reaches'][rid]['status']}", len(p.todo[rid]))
+
+
+def _log_cases(p: _Plan) -> None:
+    """run.log: which roughness cases are computed and which classes keep their n in each."""
+    entry = p.manifest.data.get("roughness_cases")
+    if not entry:
+        return
+    log.info("run %s: roughness cases %s (%s)", p.cfg.run.name, ", ".join(entry["cases"]), entry["rule"])
+    for case, keep in entry["classes_keeping_n"].items():
+        if keep:
+            log.warning("run %s: roughness case %r: class(es) %s give no n_%s and keep their n", p.cfg.run.name,
+                        case, ", ".join(keep), case)
 
 
 def _spec(p: _Plan, rid: str) -> TaskSpec:
@@ -248,5 +262,14 @@ def _record(p: _Plan, rid: str, info: dict) -> None:
         raise
     level = logging.INFO if info["status"] == "complete" else logging.ERROR
     log.log(level, "reach %s: %s%s", rid, info["status"], f" - {info['error']}" if info.get("error") else "")
+    if info.get("channel"):
+        log.info("%s", describe_channel(rid, info["channel"]))
+    cal = info.get("calibration")
+    if cal:
+        mult = ", ".join(f"{g} x{m:.4f}" for g, m in cal["multipliers"].items())
+        log.info("reach %s: calibrated to %d mark(s): %s, rmse %.4f m, %s", rid, cal["marks"], mult, cal["rmse_m"],
+                 "well determined" if cal["well_determined"] else "NOT well determined")
+        for w in cal.get("warnings", []):
+            log.warning("%s", w)
     if "traceback" in info:
         log.error("%s", info["traceback"])

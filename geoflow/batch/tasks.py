@@ -18,14 +18,15 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .. import outputs
+from .. import __version__, outputs
 from ..config import Config, load_config
 from ..constants import CAUTION
 from ..errors import ConfigError, GeoflowError, HydraulicsError, InputDataError, is_disk_full, nearly_full, write_error
 from ..naming import safe_name
 from ..records import ReachGeometry
-from ..roughness import composite_n_by_part
-from . import reach
+from ..roughness import case_factors, combine, composite_n_by_part
+from ..roughness.overlay import GAP_CLASS
+from . import calibrate, ratings, reach, structures
 from .inputs import Inputs, open_inputs
 from .layout import relative_name
 from .manifest import part_paths
@@ -101,22 +102,52 @@ def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float)
     rid = spec.reach_id
     geom = GEOMETRY_CACHE.get((spec.identity, rid)) or reach.build_geometry(cfg, inputs, rid, dict(inputs.reaches)[rid])
     info["sections"], info["warnings"] = len(geom.sections), list(geom.warnings)
+    if geom.channel:
+        info["channel"] = geom.channel
+    if geom.structures:
+        info["structures"] = structures.manifest_entry(cfg, geom)
     info["files"] = [relative_name(cfg.run.output_dir, _write_sections_part(cfg, inputs, geom))]
     t1 = time.perf_counter()
     todo = [e for e in cfg.events if e.name in spec.events]
-    profiles = reach.solve_reach(cfg, geom, todo, _junction_wse(cfg, inputs, geom, todo, spec.junction_events))
-    info["timings_s"]["hydraulics"] = time.perf_counter() - t1
+    marks = inputs.marks.get(rid) if cfg.calibration is not None else None
+    needed = [e for e in cfg.events if e.name in spec.events or (marks is not None and e.name in set(marks.event))]
+    junction = _junction_wse(cfg, inputs, geom, needed, spec.junction_events)
+    factors = _calibrate(cfg, geom, marks, junction, info) if marks is not None else {}
+    t2 = time.perf_counter()
+    profiles = {case: reach.solve_reach(cfg, geom, todo, None if junction is None else junction[case],
+                                        factors=combine(factors, case_factors(cfg.roughness.classes, case)))
+                for case in cfg.roughness.all_cases()}
+    info["timings_s"].update(calibration=t2 - t1, hydraulics=time.perf_counter() - t2)
     for ev in todo:
-        info["events"][ev.name] = _compute_event(cfg, inputs, geom, profiles[ev.name], ev)
-    info["files"] += [relative_name(cfg.run.output_dir, f) for f in _write_reach_report(cfg, geom)]
-    info["timings_s"].update(sections=t1 - t0, total=time.perf_counter() - t0)
+        info["events"][ev.name] = _compute_event(cfg, inputs, geom, {c: p[ev.name] for c, p in profiles.items()},
+                                                 ev, factors)
+    if cfg.rating_curves is not None:
+        t3 = time.perf_counter()
+        path = part_paths(cfg.run.output_dir, safe_name(rid))["ratings"]
+        info["files"].append(relative_name(cfg.run.output_dir, outputs.write_rating_csv(
+            path, ratings.rating_rows(cfg, geom, factors))))
+        info["timings_s"]["rating_curves"] = time.perf_counter() - t3
+    t4 = time.perf_counter()
+    info["files"] += [relative_name(cfg.run.output_dir, f) for f in _write_reach_report(cfg, inputs, geom)]
+    info["timings_s"].update(sections=t1 - t0, report=time.perf_counter() - t4, total=time.perf_counter() - t0)
     failed = [e for e, u in info["events"].items() if u["status"] != "complete"]
     info["status"] = "failed" if failed else "complete"
     info["error"] = "; ".join(info["events"][e]["error"] for e in failed) or None
 
 
+def _calibrate(cfg: Config, geom, marks, junction: dict | None, info: dict) -> dict:
+    """Calibrate the reach's n to its marks; record it (manifest entry, part file) -> {class: factor}."""
+    cal = calibrate.calibrate_reach(cfg, geom, marks, None if junction is None else junction["normal"])
+    info["calibration"] = dict(cal.record, warnings=list(cal.warnings))
+    info["warnings"] += cal.warnings
+    path = part_paths(cfg.run.output_dir, safe_name(geom.reach_id))["calibration"]
+    info["files"].append(relative_name(cfg.run.output_dir, outputs.write_calibration_csv(path, cal.rows)))
+    return cal.factors
+
+
 def _junction_wse(cfg: Config, inputs, geom, events, complete: tuple[str, ...]) -> dict | None:
-    """WSE per event where this reach joins the reach named by its junction boundary (or None).
+    """{roughness case: {event: WSE}} where this reach joins the reach named by its junction boundary
+    (or None): each case of this reach ends at the same case of the receiving reach.
 
     Only results of the receiving reach that this run computed (or reused after proving them
     current) are read: ``complete`` lists those events.
@@ -133,59 +164,100 @@ def _junction_wse(cfg: Config, inputs, geom, events, complete: tuple[str, ...]) 
         raise HydraulicsError(f"reach {geom.reach_id!r}: junction reach {down.reach!r} has no results; it failed "
                               "or was not computed, so this reach cannot be either")
     try:
-        return reach.junction_wse_from(dict(inputs.reaches)[down.reach], prof, geom.centreline,
-                                       [e.name for e in events], down.reach)
+        return {case: reach.junction_wse_from(dict(inputs.reaches)[down.reach], prof[prof["roughness_case"] == case],
+                                              geom.centreline, [e.name for e in events], down.reach)
+                for case in cfg.roughness.all_cases()}
     except HydraulicsError as exc:
         raise HydraulicsError(f"reach {geom.reach_id!r}: {exc}") from None
 
 
-def _compute_event(cfg: Config, inputs, geom, prof, ev) -> dict:
-    """Map and write one event of a reach whose profile is solved (or failed)."""
-    if isinstance(prof, GeoflowError):
-        return {"status": "failed", "error": str(prof)}
+def _compute_event(cfg: Config, inputs, geom, profs: dict, ev, factors: dict) -> dict:
+    """Map and write one event of a reach (every roughness case) whose profiles are solved (or failed)."""
+    for case, prof in profs.items():
+        if isinstance(prof, GeoflowError):
+            where = "" if case == "normal" else f" (roughness case {case!r})"
+            return {"status": "failed", "error": f"{prof}{where}"}
     t1 = time.perf_counter()
+    parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(ev.name))
     try:
-        rows = outputs.profile_rows(geom, ev.name, prof)
-        files = _write_maps(cfg, inputs, geom, ev.name, prof)
-        parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(ev.name))
+        rows = pd.concat([outputs.profile_rows(geom, ev.name, p, case) for case, p in profs.items()],
+                         ignore_index=True)
+        files = _write_maps(cfg, inputs, geom, ev.name, profs, factors)
         files.append(outputs.write_profile_csv(parts["profile"], rows))
+        if geom.structures:
+            table = pd.concat([outputs.structure_rows(geom, ev.name, p, case) for case, p in profs.items()],
+                              ignore_index=True)
+            files.append(outputs.write_structures_csv(parts["structures"], table))
         t2 = time.perf_counter()
     except GeoflowError as exc:
         return {"status": "failed", "error": str(exc)}
-    flagged = int((rows["flags"].str.len() > 0).sum())
+    normal = rows[rows["roughness_case"] == "normal"]
+    flagged = int((normal["flags"].str.len() > 0).sum())
     return {"status": "complete", "error": None, "files": [relative_name(cfg.run.output_dir, f) for f in files],
             "timings_s": {"mapping_and_writing": t2 - t1},
-            "max_depth_m": float(np.nanmax(rows["depth_m"])), "flagged_sections": flagged, **event_summary(rows)}
+            "max_depth_m": float(np.nanmax(normal["depth_m"])), "flagged_sections": flagged, **event_summary(normal)}
 
 
-def _write_maps(cfg: Config, inputs, geom, event: str, prof) -> list[Path]:
-    """Rasters (block-wise COGs) and the extent part of one reach and event."""
+def _write_maps(cfg: Config, inputs, geom, event: str, profs: dict, factors: dict) -> list[Path]:
+    """Rasters (block-wise COGs, with their units and the caution as metadata) of every roughness
+    case, the outline part (one multipolygon per reach, event and case) and the WSE spread part.
+
+    The normal case keeps the names <event>_<kind>.tif (and is the only one with velocity); the
+    other cases write <event>.<case>_wse.tif and <event>.<case>_depth.tif.
+    """
     import geopandas as gpd
+    import shapely
 
-    from ..mapping import write_reach_maps
-    kinds = [k for k in ("wse", "depth", "velocity") if k in cfg.mapping.outputs]
+    from ..mapping import write_reach_maps, write_wse_spread
     parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(event))
-    if not kinds and "extent" not in cfg.mapping.outputs:
-        return []
     rdir = cfg.run.output_dir / "rasters" / safe_name(geom.reach_id)
-    paths = {k: rdir / f"{safe_name(event)}_{k}.tif" for k in kinds}
-    velocity = _velocity_inputs(cfg, inputs, prof) if "velocity" in kinds else None
-    m = write_reach_maps(inputs.dem, geom, np.asarray(prof.wse), paths, cell_size=cfg.mapping.cell_size,
-                         velocity=velocity, clip=reach.map_clip(cfg, inputs, geom))
-    ext = gpd.GeoDataFrame({"reach_id": [geom.reach_id] * len(m.extent), "event": [event] * len(m.extent),
-                            "area_m2": [p.area for p in m.extent]}, geometry=list(m.extent),
-                           crs=inputs.dem.crs.to_wkt())
-    return list(paths.values()) + [outputs.write_extent_gpkg(parts["extent"], ext)]
+    written, extents, wse_paths = [], [], {}
+    clip = reach.map_clip(cfg, inputs, geom)
+    for case, prof in profs.items():
+        kinds = [k for k in ("wse", "depth", "velocity") if k in cfg.mapping.outputs
+                 and (case == "normal" or k != "velocity")]
+        if not kinds and "extent" not in cfg.mapping.outputs:
+            continue
+        stem = safe_name(event) if case == "normal" else f"{safe_name(event)}.{case}"
+        paths = {k: rdir / f"{stem}_{k}.tif" for k in kinds}
+        velocity = _velocity_inputs(cfg, inputs, geom, prof, factors) if "velocity" in kinds else None
+        meta = {k: outputs.raster_metadata(k, CAUTION, reach_id=geom.reach_id, event=event, run=cfg.run.name,
+                                           geoflow_version=__version__, config_sha256=cfg.sha256,
+                                           roughness_case=case)
+                for k in kinds}
+        m = write_reach_maps(inputs.dem, geom, np.asarray(prof.wse), paths, cell_size=cfg.mapping.cell_size,
+                             velocity=velocity, clip=clip, meta=meta)
+        written += list(paths.values())
+        wse_paths[case] = paths.get("wse")
+        if m.extent:
+            outline = shapely.multipolygons(m.extent)
+            extents.append(gpd.GeoDataFrame({"reach_id": [geom.reach_id], "event": [event], "roughness_case": [case],
+                                             "area_m2": [outline.area]}, geometry=[outline],
+                                            crs=inputs.dem.crs.to_wkt()))
+    if "extent" in cfg.mapping.outputs or extents:
+        ext = (gpd.GeoDataFrame(pd.concat(extents, ignore_index=True), geometry="geometry", crs=inputs.dem.crs.to_wkt())
+               if extents else gpd.GeoDataFrame({"reach_id": [], "event": [], "roughness_case": [], "area_m2": []},
+                                                geometry=[], crs=inputs.dem.crs.to_wkt()))
+        written.append(outputs.write_extent_gpkg(parts["extent"], ext))
+    if wse_paths.get("low") is not None and wse_paths.get("high") is not None:
+        written.append(write_wse_spread(geom, profs["low"].wse, profs["high"].wse, wse_paths["low"],
+                                        wse_paths["high"], parts["spread"]))
+    return written
 
 
-def _velocity_inputs(cfg: Config, inputs, prof):
-    """Velocity raster inputs: the profile's friction slope and each land-cover polygon's base n."""
+def _velocity_inputs(cfg: Config, inputs, geom, prof, factors: dict | None = None):
+    """Velocity raster inputs: per section the slope under which the depth strips carry the section's
+    discharge (geoflow.mapping.strips), and each land-cover polygon's base n (times its class's
+    calibration factor)."""
     from ..mapping import VelocityInputs
+    from ..mapping.strips import strip_slope
     table = cfg.roughness.n_table()
+    factors = factors or {}
+    gap_n = None if cfg.roughness.default_n is None else cfg.roughness.default_n * factors.get(GAP_CLASS, 1.0)
     fallback = np.nan if cfg.roughness.default_n is None else cfg.roughness.default_n
-    n = np.array([table.get(str(c), fallback) for c in inputs.cover.classes], dtype=float)
-    return VelocityInputs(friction_slope=np.asarray(prof.friction_slope, dtype=float),
-                          landcover=(np.asarray(inputs.cover.geometries), n), default_n=cfg.roughness.default_n)
+    n = np.array([table.get(str(c), fallback) * factors.get(str(c), 1.0) for c in inputs.cover.classes], dtype=float)
+    slope = strip_slope(geom.sections, np.asarray(prof.wse, dtype=float), np.asarray(prof.discharge, dtype=float))
+    return VelocityInputs(friction_slope=slope, landcover=(np.asarray(inputs.cover.geometries), n), default_n=gap_n)
 
 
 def _write_sections_part(cfg: Config, inputs: Inputs, geom) -> Path:
@@ -203,19 +275,67 @@ def read_profile_parts(cfg: Config, reach_id: str, events: list[str] | None = No
             continue
         p = part_paths(cfg.run.output_dir, safe_name(reach_id), safe_name(ev.name))["profile"]
         if p.is_file():
-            frames.append(pd.read_csv(p, keep_default_na=False, na_values=[""],
-                                      dtype={"reach_id": str, "event": str, "flags": str}))
+            frame = pd.read_csv(p, keep_default_na=False, na_values=[""],
+                                dtype={"reach_id": str, "event": str, "roughness_case": str, "flags": str})
+            if "roughness_case" not in frame:       # parts written before roughness cases existed
+                frame.insert(2, "roughness_case", "normal")
+            frames.append(frame)
     return pd.concat(frames, ignore_index=True) if frames else None
 
 
-def _write_reach_report(cfg: Config, geom) -> list[Path]:
+def _write_reach_report(cfg: Config, inputs, geom) -> list[Path]:
+    """The reach's HTML page, from its profile parts, the rasters and outlines just written, and a
+    DEM window (all read here, at the edge; the report itself reads nothing)."""
     if "report" not in cfg.mapping.outputs:
         return []
     prof = read_profile_parts(cfg, geom.reach_id)
     if prof is None:
         return []
+    prof = prof[prof["roughness_case"] == "normal"].reset_index(drop=True)   # the report shows the normal case
     from .. import report
     prof["flags"] = prof["flags"].fillna("")
     events = [e.name for e in cfg.events if e.name in set(prof["event"])]
+    lines = dict(inputs.reaches)
+    ctx = report.ReachContext(
+        run_facts=report.run_facts(cfg, inputs.dem), section_facts=report.section_facts(cfg, geom.reach_id,
+                                                                                         len(geom.sections)),
+        events_table=report.events_table(cfg, geom.reach_id, prof, events), roughness_table=report.roughness_table(cfg),
+        layers=_map_layers(cfg, inputs, geom, events),
+        markers=tuple(sorted(report.markers(cfg, geom.reach_id, lines) + geom.structure_markers())),
+        index=INDEX_NAME)
     path = cfg.run.output_dir / "report" / f"{safe_name(geom.reach_id)}.html"
-    return [report.write_report(path, geom.reach_id, geom, prof, events, caution=CAUTION)]
+    return [report.write_report(path, geom.reach_id, geom, prof, events, caution=CAUTION, context=ctx)]
+
+
+#: the run's index page, beside the reach pages in report/
+INDEX_NAME = "index.html"
+PREVIEW_CELLS = 1000           # longest side of the rasters drawn on a map, in cells
+
+
+def _map_layers(cfg: Config, inputs, geom, events):
+    """Plan-map layers of a reach: DEM preview, depth per event, outlines per event, other reaches."""
+    import geopandas as gpd
+    import shapely
+
+    from ..report import MapLayers
+    coords = np.concatenate([np.asarray(s.line.coords)[:, :2] for s in geom.sections])
+    (x0, y0), (x1, y1) = coords.min(axis=0), coords.max(axis=0)
+    pad = 0.03 * max(x1 - x0, y1 - y0)
+    bounds = (x0 - pad, y0 - pad, x1 + pad, y1 + pad)
+    depth, outlines = {}, {}
+    for ev in events:
+        tif = cfg.run.output_dir / "rasters" / safe_name(geom.reach_id) / f"{safe_name(ev)}_depth.tif"
+        if tif.is_file():
+            arr, box, _ = outputs.read_raster(tif, PREVIEW_CELLS)
+            depth[ev] = (arr, box)
+        part = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(ev))["extent"]
+        if part.is_file():
+            ext = gpd.read_file(part, layer="extent")
+            if "roughness_case" in ext:
+                ext = ext[ext["roughness_case"] == "normal"]
+            outlines[ev] = list(ext.geometry)
+    area = shapely.box(*bounds)
+    others = {rid: line for rid, line in inputs.reaches if rid != geom.reach_id and line.intersects(area)}
+    places = [(geom.centreline.interpolate(c), label) for c, label in geom.structure_markers()]
+    return MapLayers(dem=inputs.dem.read_preview(bounds, PREVIEW_CELLS), depth=depth, outlines=outlines,
+                      other_lines=others, structures=tuple((p.x, p.y, label) for p, label in places))

@@ -10,8 +10,10 @@ Steps, each problem collected rather than raised at once where that makes sense:
    cell_size`` against the DEM);
 2. every reach: its id (path-safe, not too long, unique once made path-safe), its centreline
    inside the DEM and over DEM data, flow changes within its length;
-3. every reach's sections cut and given Manning's n (what the run will use), and stage / rating
-   boundaries checked against the ground of the end sections;
+3. every reach's sections cut and given Manning's n (what the run will use), stage / rating
+   boundaries checked against the ground of the end sections, observed levels
+   ([calibration] observations) within the sections of the reach they belong to, and its
+   structures ([[structures]]) checked against their face sections;
 4. no output may overwrite an input (:func:`geoflow.batch.layout.check_inputs_not_outputs`).
 
 Reach-level problems (2-3) are returned by reach; :func:`check` and ``run`` raise them as one
@@ -31,9 +33,11 @@ from ..config.crosscheck import boundary_level_problems, discharge_at_ends, rais
 from ..errors import GeoflowError, GeometryError, InputDataError
 from ..naming import safe_name
 from ..records import ReachGeometry
-from . import reach
+from ..sections.channel import describe_channel
+from . import reach, structures
 from .inputs import Inputs, open_inputs
 from .layout import check_inputs_not_outputs
+from .marks import check_within_sections
 
 MAX_LISTED = 3      # problems spelt out in the one-line message; the rest are counted
 
@@ -53,10 +57,20 @@ class CheckResult:
                  f"{self.inputs.dem.cell_size:g} m cells)",
                  f"{len(self.geometries) + len(self.problems)} reach(es), {len(cfg.events)} event(s): "
                  + ", ".join(e.name for e in cfg.events)]
+        if cfg.roughness.cases:
+            lines.append(f"roughness cases: {', '.join(cfg.roughness.all_cases())}")
         for rid, g in self.geometries.items():
             flagged = sum(1 for s in g.sections if s.flags)
+            marks = self.inputs.marks.get(rid)
+            observed = f", {marks.wse.size} observed level(s) to calibrate to" if marks is not None else ""
             lines.append(f"  reach {rid}: {g.sections[-1].chainage:.0f} m, {len(g.sections)} sections, "
-                         f"{flagged} flagged")
+                         f"{flagged} flagged{observed}")
+            if g.channel:
+                lines.append(f"    {describe_channel(rid, g.channel)}")
+            for p in g.structures:
+                up, down = g.sections[p.upstream], g.sections[p.upstream + 1]
+                lines.append(f"    {p.kind} {p.structure_id} at {p.chainage:g} m: faces sections {up.section_id} / "
+                             f"{down.section_id} ({up.chainage:.1f} / {down.chainage:.1f} m)")
             lines.extend(f"    warning: {w}" for w in g.warnings)
         lines.extend(f"  reach {rid}: PROBLEM: {msg}" for rid, msg in self.problems.items())
         return lines
@@ -94,10 +108,12 @@ def validate(config: str | Path | Config, others: tuple = ()) -> CheckResult:
             problems[rid] = str(exc)
             continue
         level = boundary_level_problems(cfg, rid, _end_ground(geom), _end_discharges(cfg, rid, geom))
-        if level:
-            problems[rid] = f"{cfg.path}: " + "; ".join(level)
+        built = _structure_problems(cfg, geom)
+        if level or built:
+            problems[rid] = f"{cfg.path}: " + "; ".join(level + built)
         else:
             geoms[rid] = geom
+    check_within_sections(cfg, inputs.marks, geoms)
     check_inputs_not_outputs(cfg, tuple(others))
     order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)
     problems = {rid: problems[rid] for rid in order if rid in problems}
@@ -138,6 +154,14 @@ def reach_problems(cfg: Config, inputs: Inputs) -> dict[str, str]:
     lengths = {rid: float(line.length) for rid, line in inputs.reaches}
     raise_problems(cfg, reach_length_problems(cfg, lengths))
     return problems
+
+
+def _structure_problems(cfg: Config, geom: ReachGeometry) -> list[str]:
+    """Problems of the reach's structures on its sections (a culvert wider than the valley, a
+    bridge opening the face sections cannot hold, ...)."""
+    if not geom.structures:
+        return []
+    return structures.check(cfg, geom, reach.build_tables(geom, cfg))
 
 
 def _ground_under(line, dem, max_points: int = 2000) -> np.ndarray:

@@ -20,20 +20,27 @@ from .model import (  # noqa: F401
     VERTICAL_UNITS,
     BoundaryConfig,
     BoundarySpec,
+    CalibrationConfig,
+    ChannelConfig,
+    ChannelReach,
+    ChannelShape,
     Config,
     Event,
     FlowChange,
     HydraulicsConfig,
     MappingConfig,
+    RatingCurvesConfig,
     ReachesConfig,
     RoughnessClass,
     RoughnessConfig,
     RunConfig,
     SectionsConfig,
+    StructureSpec,
     TerrainConfig,
 )
 from .read import (
     _read_boundary,
+    _read_bspec,
     _read_events,
     _read_hydraulics,
     _read_mapping,
@@ -44,13 +51,18 @@ from .read import (
     _read_terrain,
     _Reader,
 )
+from .read_analysis import read_calibration, read_rating_curves
+from .read_channel import _read_channel
+from .read_structures import read_structures
 
 __all__ = ["load_config", "Config", "RunConfig", "TerrainConfig", "ReachesConfig", "SectionsConfig",
            "RoughnessClass", "RoughnessConfig", "FlowChange", "Event", "BoundarySpec", "BoundaryConfig",
-           "HydraulicsConfig", "MappingConfig", "REGIMES", "BOUNDARY_TYPES", "FRICTION_SLOPE_METHODS",
+           "HydraulicsConfig", "MappingConfig", "ChannelConfig", "ChannelReach", "ChannelShape",
+           "CalibrationConfig", "RatingCurvesConfig", "StructureSpec", "REGIMES", "BOUNDARY_TYPES", "FRICTION_SLOPE_METHODS",
            "MAPPING_OUTPUTS", "VERTICAL_UNITS"]
 
-TOP_LEVEL = ("run", "terrain", "reaches", "sections", "roughness", "events", "boundary", "hydraulics", "mapping")
+TOP_LEVEL = ("run", "terrain", "reaches", "sections", "roughness", "events", "boundary", "hydraulics", "mapping",
+             "channel", "calibration", "rating_curves", "structures")
 
 
 def load_config(path: str | Path) -> Config:
@@ -63,7 +75,7 @@ def load_config(path: str | Path) -> Config:
     except OSError as exc:
         raise ConfigError(f"{path}: cannot read config ({exc.strerror})") from None
     try:
-        doc = tomllib.loads(raw.decode("utf-8"))
+        doc = tomllib.loads(raw.decode("utf-8-sig"))     # a byte-order mark (some editors add one) is fine
     except UnicodeDecodeError:
         raise ConfigError(f"{path}: not UTF-8 text; save the config as UTF-8") from None
     except tomllib.TOMLDecodeError as exc:
@@ -74,6 +86,9 @@ def load_config(path: str | Path) -> Config:
         run=_read_run(r, doc), terrain=_read_terrain(r, doc), reaches=_read_reaches(r, doc),
         sections=_read_sections(r, doc), roughness=_read_roughness(r, doc), events=_read_events(r, doc),
         boundary=_read_boundary(r, doc), hydraulics=_read_hydraulics(r, doc), mapping=_read_mapping(r, doc),
+        channel=_read_channel(r, doc),
+        calibration=read_calibration(r, doc), rating_curves=read_rating_curves(r, doc, _read_bspec),
+        structures=read_structures(r, doc),
     )
     if r.problems:
         raise ConfigError(_summarise(path, r.problems), problems=[f"{path}: {p}" for p in r.problems])

@@ -29,7 +29,50 @@ def raise_problems(cfg: Config, problems: list[str]) -> None:
 def input_problems(cfg: Config, reach_ids: list[str], classes: list[str], dem_cell: float) -> list[str]:
     """Problems of the config against the inputs' reach ids, land-cover classes and DEM cell size."""
     return (_class_problems(cfg, classes) + _reach_name_problems(cfg, reach_ids) + _junction_problems(cfg, reach_ids)
-            + _cell_size_problems(cfg, dem_cell))
+            + _cell_size_problems(cfg, dem_cell) + _calibration_problems(cfg, classes)
+            + _rating_problems(cfg, reach_ids))
+
+
+def _calibration_problems(cfg: Config, present: list[str]) -> list[str]:
+    """Classes named in [calibration] adjust must exist; the channel class cannot be in two groups."""
+    cal = cfg.calibration
+    if cal is None:
+        return []
+    known = set(present) | set(cfg.roughness.classes)
+    out = []
+    for i, group in enumerate(cal.adjust):
+        if isinstance(group, str):
+            continue
+        unknown = [c for c in group if c not in known]
+        if unknown:
+            out.append(f"[calibration] adjust[{i}]: class(es) {', '.join(map(repr, unknown))} are neither in field "
+                       f"{cfg.roughness.class_field!r} of {cfg.roughness.landcover.name} nor in [roughness.classes] "
+                       f"(classes: {', '.join(sorted(known))})")
+        if "channel" in cal.adjust and cfg.roughness.channel_class in group:
+            out.append(f"[calibration] adjust[{i}]: the channel class {cfg.roughness.channel_class!r} is already the "
+                       "'channel' group; take it out of this list or drop 'channel'")
+    return out
+
+
+def _rating_problems(cfg: Config, reach_ids: list[str]) -> list[str]:
+    """Ratings need a boundary that gives a level for any discharge: not a junction, a rating that covers them."""
+    rc = cfg.rating_curves
+    if rc is None:
+        return []
+    out = []
+    junctions = [rid for rid in reach_ids if cfg.boundary.for_reach(rid)[0].type == "junction"]
+    if junctions and rc.downstream is None:
+        out.append(f"[rating_curves]: reach(es) {', '.join(map(repr, junctions))} end at a junction, which gives "
+                   "levels only for the receiving reach's events; add [rating_curves] downstream = { type = ... } "
+                   "(e.g. normal_depth) for the ratings")
+    specs = {rid: rc.downstream or cfg.boundary.for_reach(rid)[0] for rid in reach_ids}
+    for rid, spec in specs.items():
+        if spec.type == "rating" and (rc.discharges[0] < spec.discharge[0] or rc.discharges[-1] > spec.discharge[-1]):
+            where = "[rating_curves] downstream" if rc.downstream is not None else _where(cfg, rid, "downstream")
+            out.append(f"{where}: rating discharges {rc.discharges[0]:g}-{rc.discharges[-1]:g} m3/s of reach {rid!r} "
+                       f"go beyond the boundary rating ({spec.discharge[0]:g}-{spec.discharge[-1]:g} m3/s); extend it")
+            break
+    return out
 
 
 def _class_problems(cfg: Config, present: list[str]) -> list[str]:
@@ -57,10 +100,17 @@ def _reach_name_problems(cfg: Config, reach_ids: list[str]) -> list[str]:
             out.append(f"[reaches] id_field: reach id {rid[:40]!r}... in {cfg.reaches.centrelines.name} is "
                        f"{len(rid)} characters long; reach ids become file names, keep them to {MAX_NAME_LENGTH}")
     out += _event_reach_problems(cfg, known, listing)
-    for table, names in (("sections.reaches", cfg.sections.reaches), ("boundary.reaches", cfg.boundary.reaches)):
+    channel = cfg.channel.reaches if cfg.channel is not None else {}
+    for table, names in (("sections.reaches", cfg.sections.reaches), ("boundary.reaches", cfg.boundary.reaches),
+                         ("channel.reaches", channel)):
         for rid in names:
             if rid not in known:
                 out.append(f"[{table}.{rid}]: names a reach that is not in {cfg.reaches.centrelines.name} {listing}")
+    for s in cfg.structures:
+        if s.reach not in known:
+            near = difflib.get_close_matches(s.reach, sorted(known), n=1)
+            hint = f"; did you mean {near[0]!r}?" if near else ""
+            out.append(f"{s.where} reach: {s.reach!r} is not a reach of {cfg.reaches.centrelines.name} {listing}{hint}")
     return out
 
 
@@ -110,8 +160,9 @@ def _cell_size_problems(cfg: Config, dem_cell: float) -> list[str]:
 
 
 def reach_length_problems(cfg: Config, lengths: Mapping[str, float]) -> list[str]:
-    """Flow changes must lie within the reach they apply to (0 < chainage < reach length)."""
-    out = []
+    """Flow changes must lie within the reach they apply to (0 < chainage < reach length), and
+    structures with both their faces on their reach."""
+    out = _structure_chainage_problems(cfg, lengths)
     for ev in cfg.events:
         for i, ch in enumerate(ev.changes):
             for rid in ([ch.reach] if ch.reach is not None else list(lengths)):
@@ -121,6 +172,18 @@ def reach_length_problems(cfg: Config, lengths: Mapping[str, float]) -> list[str
                     out.append(f"[[events]] {ev.name!r} changes[{i}]: chainage {ch.chainage:g} m is beyond the "
                                f"downstream end of reach {rid!r} ({length:.1f} m long); a flow change must lie "
                                f"within its reach{hint}")
+    return out
+
+
+def _structure_chainage_problems(cfg: Config, lengths: Mapping[str, float]) -> list[str]:
+    out = []
+    for s in cfg.structures:
+        length = lengths.get(s.reach)
+        up, down = s.faces
+        if length is not None and (up < 0.0 or down > length):
+            out.append(f"{s.where} chainage: {s.chainage:g} m puts its faces at {up:g}-{down:g} m, off reach "
+                       f"{s.reach!r} (0-{length:.1f} m); a structure needs both faces on its reach (chainage from "
+                       f"{s.half_gap:g} to {length - s.half_gap:.1f} m)")
     return out
 
 
@@ -135,14 +198,18 @@ def boundary_level_problems(cfg: Config, reach_id: str, end_ground: Mapping[str,
     """
     out = []
     down, up = cfg.boundary.for_reach(reach_id)
-    for which, spec in (("downstream", down), ("upstream", up)):
+    checks = [(which, spec, _where(cfg, reach_id, which), discharge_at_end.get(which))
+              for which, spec in (("downstream", down), ("upstream", up))]
+    if cfg.rating_curves is not None and cfg.rating_curves.downstream is not None:   # rating ranges: _rating_problems
+        checks.append(("downstream", cfg.rating_curves.downstream, "[rating_curves] downstream",
+                       np.asarray(cfg.rating_curves.discharges)))
+    for which, spec, where, q_end in checks:
         if spec is None or spec.type not in ("stage", "rating") or which not in end_ground:
             continue
         low, high = end_ground[which]
-        where = _where(cfg, reach_id, which)
-        levels = _levels(spec, discharge_at_end.get(which))
-        if spec.type == "rating":
-            q = np.asarray(discharge_at_end.get(which, []), dtype=float)
+        levels = _levels(spec, q_end)
+        if spec.type == "rating" and not where.startswith("[rating_curves]"):
+            q = np.asarray(q_end if q_end is not None else [], dtype=float)
             bad = q[(q < spec.discharge[0]) | (q > spec.discharge[-1])]
             if bad.size:
                 out.append(f"{where}: event discharge {bad[0]:g} m3/s at the {which} end of reach {reach_id!r} is "

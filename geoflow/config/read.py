@@ -33,6 +33,7 @@ from .model import (
     SectionsConfig,
     TerrainConfig,
 )
+from .read_analysis import read_cases
 
 # ----------------------------------------------------------------------------------------------
 # Reading helpers: each records a problem (with its TOML path) instead of raising at once.
@@ -263,7 +264,7 @@ def _read_roughness(r: _Reader, doc: dict) -> RoughnessConfig | None:
     t = r.table(doc, "roughness", "[roughness]")
     if t is None:
         return None
-    keys = ("landcover", "layer", "class_field", "channel_class", "default_n", "classes", "table")
+    keys = ("landcover", "layer", "class_field", "channel_class", "default_n", "classes", "table", "cases")
     r.known(t, keys, "[roughness]")
     path = r.existing(t, "landcover", "[roughness]")
     layer = r.value(t, "layer", "[roughness]", "string")
@@ -276,10 +277,11 @@ def _read_roughness(r: _Reader, doc: dict) -> RoughnessConfig | None:
     classes.update({str(k): c for k, v in raw.items() if (c := _read_class(r, str(k), v)) is not None})
     if classes and channel is not None and channel not in classes and default_n is None:
         r.problem("[roughness] channel_class", f"{channel!r} has no [roughness.classes.{channel}] table; add one")
+    cases = read_cases(r, t)
     if not (path and field_ and channel):
         return None
     return RoughnessConfig(landcover=path, layer=layer, class_field=field_, channel_class=channel,
-                           classes=MappingProxyType(classes), default_n=default_n, table=table)
+                           classes=MappingProxyType(classes), default_n=default_n, table=table, cases=cases)
 
 
 def _read_csv_classes(r: _Reader, path: Path) -> dict[str, RoughnessClass]:

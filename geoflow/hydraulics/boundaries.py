@@ -66,13 +66,16 @@ class Boundary:
         if self.kind == "critical":
             return np.array(critical_wse, dtype=float)
         if self.kind == "normal_depth":
+            assert self.slope is not None            # set by Boundary.normal_depth
             return normal_wse(table, q, self.slope)
         if self.kind == "stage":
+            assert self.wse is not None              # set by Boundary.stage
             if self.wse.size not in (1, q.size):
                 raise HydraulicsError(f"stage boundary at section {table.name!r}: give one WSE or "
                                       f"one per event ({q.size}), got {self.wse.size}")
             w = np.broadcast_to(self.wse, q.shape).astype(float)
         else:
+            assert self.rating_discharge is not None and self.rating_stage is not None
             lo, hi = self.rating_discharge[0], self.rating_discharge[-1]
             if np.any((q < lo) | (q > hi)):
                 raise HydraulicsError(f"rating boundary at section {table.name!r}: discharge "

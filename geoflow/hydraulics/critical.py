@@ -16,12 +16,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from geoflow.constants import G
 from geoflow.errors import HydraulicsError
 from geoflow.hydraulics.geometry import SectionTable, flow_state, properties
 from geoflow.hydraulics.lookup import flow_in_windows, slopes_in_windows, windows
 from geoflow.hydraulics.roots import bracketed_root, zoom_minimum
-
-G = 9.80665
 
 
 @dataclass(frozen=True)
@@ -93,7 +92,7 @@ def _evaluator(tables):
         def at(cand, x):
             a, _, al = flow_in_windows(win, cand, x)
             return a, al
-        at.slopes = lambda cand, x: slopes_in_windows(win, cand, x)
+        setattr(at, "slopes", lambda cand, x: slopes_in_windows(win, cand, x))  # noqa: B010
         return at
     return in_windows
 

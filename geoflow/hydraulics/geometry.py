@@ -1,14 +1,14 @@
 """Cross-section property tables: area, wetted perimeter, top width and conveyance.
 
 A section is a ground profile (station, elevation) with Manning's n and a part code
-(0 left overbank, 1 channel, 2 right overbank) per segment between consecutive points.
+(0 left floodplain, 1 channel, 2 right floodplain) per segment between consecutive points.
 Ground is linear between points; a partly wet segment is clipped exactly at the water line.
 
 Subdivision rule (vertical division lines, which carry no wetted perimeter):
 - the channel part is one subdivision; where n varies inside it the composite n is
   Horton/Einstein's n_c = [sum P_i n_i^1.5 / P]^(2/3) over the wetted perimeter under water
   (Chow 1959, Open-Channel Hydraulics, ch. 6, from memory);
-- each overbank is split at every change of n (so its composite n is its own n).
+- each floodplain is split at every change of n (so its composite n is its own n).
 Conveyance K_i = (1/n_i) A_i R_i^(2/3) (Manning, SI); kinetic-energy and momentum coefficients
 alpha = A_t^2 sum(K_i^3/A_i^2) / K_t^3 and beta = A_t sum(K_i^2/A_i) / K_t^2 (Chow 1959, ch. 2
 and 6, from memory).
@@ -41,6 +41,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from geoflow.constants import G
 from geoflow.errors import GeometryError
 from geoflow.hydraulics.lookup import LevelTable, build_level_table, evaluate, flow_terms
 
@@ -66,7 +67,7 @@ class SectionProperties:
     sub_perimeter: np.ndarray    # (k, S) m
     sub_n: np.ndarray            # (k, S) composite n (nan when dry)
     sub_conveyance: np.ndarray   # (k, S) m3/s
-    part_area: np.ndarray        # (k, 3) m2, left overbank / channel / right overbank
+    part_area: np.ndarray        # (k, 3) m2, left floodplain / channel / right floodplain
     part_conveyance: np.ndarray  # (k, 3) m3/s
     not_contained: np.ndarray    # (k,) bool, water above an end of the section
 
@@ -89,15 +90,6 @@ class SectionTable:
     lookup: LevelTable | None    # None with a depth law for n (exact clipping is used then)
     flow_at_levels: tuple = ()   # (area, conveyance, alpha (L,), part conveyance (L, 3))
     storage: np.ndarray | None = None  # (m-1,) bool: segments with area but no conveyance
-
-    @property
-    def at_levels(self) -> SectionProperties:
-        """All properties at ``levels`` (computed on first use)."""
-        cache = self.__dict__.get("_at_levels")
-        if cache is None:
-            cache = fast_properties(self, self.levels)
-            object.__setattr__(self, "_at_levels", cache)
-        return cache
 
     @property
     def thalweg(self) -> float:
@@ -155,8 +147,8 @@ def _checked_arrays(station, elevation, n, part, name):
     if not np.all(np.isfinite(nn) & (nn > 0)):
         raise GeometryError(f"section {name!r}: Manning's n must be finite and > 0 on every segment")
     if not np.all((pp == 0) | (pp == 1) | (pp == 2)):
-        raise GeometryError(f"section {name!r}: part codes must be 0 (left overbank), "
-                            "1 (channel) or 2 (right overbank)")
+        raise GeometryError(f"section {name!r}: part codes must be 0 (left floodplain), "
+                            "1 (channel) or 2 (right floodplain)")
     return x, z, nn, pp.astype(np.int8)
 
 
@@ -190,7 +182,7 @@ def _checked_n_depth(n_depth, nseg, name):
 
 
 def _subdivisions(n, part, n_depth, storage=None):
-    """Subdivision index per segment: break where the part changes, and inside an overbank
+    """Subdivision index per segment: break where the part changes, and inside a floodplain
     where n (or its depth law) or storage changes; the channel part stays one subdivision."""
     n_cols = n[None, :] if n_depth is None else np.vstack([n[None, :], n_depth[1]])
     n_change = np.any(n_cols[:, 1:] != n_cols[:, :-1], axis=0)
@@ -315,7 +307,7 @@ def _assemble(table, w, sub_a, sub_p, sub_ns, t_t, moment):
         sub_k[~((sub_a > 0) & (sub_p > 0) & (sub_ns > 0))] = 0.0     # storage: N = 0, no conveyance
         a_t, k_t = sub_a.sum(axis=1), sub_k.sum(axis=1)
         # alpha = sum u_i v_i^2, beta = sum u_i v_i with u_i = K_i/K_t and v_i = V_i/V_mean =
-        # (K_i/A_i)/(K_t/A_t): the REFERENCES 3.1 formulas in scale-free form (no underflow)
+        # (K_i/A_i)/(K_t/A_t): the Chow (1959, ch. 2) formulas in scale-free form (no underflow)
         vel = np.where(sub_k > 0, sub_k / np.where(sub_k > 0, sub_a, 1.0), 0.0)
         u = sub_k / k_t[:, None]
         v = vel * (a_t / k_t)[:, None]
@@ -333,7 +325,7 @@ def _assemble(table, w, sub_a, sub_p, sub_ns, t_t, moment):
         not_contained=(w > table.elevation[0]) | (w > table.elevation[-1]))
 
 
-def specific_force(props: SectionProperties, discharge, g: float = 9.80665):
+def specific_force(props, discharge, g: float = G):
     """Specific force (momentum function) M = beta Q^2 / (g A) + A ybar, m3
     (Chow 1959, ch. 3, from memory); inf where the section is dry."""
     q = np.asarray(discharge, dtype=float)

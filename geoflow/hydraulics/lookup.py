@@ -36,7 +36,7 @@ class LevelTable:
     sentinel first); ``coef`` (8, L+1, S) holds, per subdivision, the values from the right at
     each start and slopes: planes A, T, t, N, v, P, p, M (the first five give the flow terms).
     ``to_part`` (S, 3) maps
-    subdivisions to left overbank / channel / right overbank."""
+    subdivisions to left floodplain / channel / right floodplain."""
 
     start: np.ndarray
     coef: np.ndarray
@@ -128,7 +128,7 @@ def _flow(c, d):
     """Total area, conveyance, alpha and subdivision conveyance (k, S). Manning with the
     composite n (N_s/P_s)^(2/3) gives K_s = A_s (A_s/P_s)^(2/3) / (N_s/P_s)^(2/3)
     = A_s (A_s/N_s)^(2/3); alpha = A^2 sum(K_s^3/A_s^2) / K^3 in the scale-free form of
-    ``geometry`` (REFERENCES 3.1)."""
+    ``geometry`` (Chow 1959, ch. 2)."""
     sub_a = c[0] + d * (c[1] + 0.5 * c[2] * d)
     nsum = c[3] + c[4] * d
     ratio = np.divide(sub_a, nsum, out=np.zeros_like(sub_a), where=nsum > 0)

@@ -6,7 +6,7 @@ Open-Channel Hydraulics, ch. 10, standard-step method, from memory):
     WSE_u + alpha_u V_u^2/2g = WSE_d + alpha_d V_d^2/2g + L Sf_bar + C |alpha_u V_u^2/2g - alpha_d V_d^2/2g|
 
 - Sf_bar averages the friction slopes Sf = (Q/K)^2 of both ends with the selected rule
-  (REFERENCES 3.2: average conveyance, arithmetic, geometric, harmonic);
+  (average conveyance, arithmetic, geometric, harmonic; compared by Reed & Wolfkill 1976, from memory);
 - L is the discharge-weighted reach length (L_lob Q_lob + L_ch Q_ch + L_rob Q_rob) / Q with the
   mean of both sections' part discharges (part discharges split Q in proportion to conveyance);
 - C is the contraction coefficient where the velocity head rises in the direction of flow and
@@ -62,14 +62,8 @@ def section_state(table: SectionTable, wse, discharge, g: float) -> State:
     return State(w, w + head, head, q, conv, share * q[:, None])
 
 
-def reach_length(lengths, part_q_a, part_q_b):
-    """Discharge-weighted reach length, m, from (3,) part lengths and (e, 3) part discharges."""
-    mean_q = 0.5 * (part_q_a + part_q_b)
-    return (mean_q @ np.asarray(lengths, dtype=float)) / mean_q.sum(axis=1)
-
-
 def mean_friction_slope(q1, k1, q2, k2, rule: str):
-    """Representative friction slope of a reach (REFERENCES 3.2, from memory)."""
+    """Representative friction slope of a reach (Reed & Wolfkill 1976, from memory)."""
     with np.errstate(divide="ignore", invalid="ignore"):
         if rule == "average_conveyance":
             return ((q1 + q2) / (k1 + k2)) ** 2
@@ -102,8 +96,8 @@ def _balance(w, flow, q, known: State, lengths, unknown_upstream: bool, opts):
 
 
 def _balance_terms(w, area, conv, alpha, part_k, qq, known, lengths, unknown_upstream, opts):
-    """The terms of ``_balance``: velocity head, discharge-weighted length (``reach_length``
-    broadcast over trials), mean friction slope and eddy loss."""
+    """The terms of ``_balance``: velocity head, discharge-weighted length (``lengths`` weighted
+    by the mean part discharges, broadcast over trials), mean friction slope and eddy loss."""
     head = alpha * qq * qq / (2.0 * opts.g * area * area)
     share = part_k / conv[..., None]
     share[~(conv > 0)] = 1.0 / 3.0

@@ -3,7 +3,8 @@
 A block is a window of the output grid: the reach window of the DEM grid, or a coarser grid
 aligned to it. For one block: read the ground (``dem.read(window)`` only), interpolate the
 WSE (and further per-section values) from the section quads whose bounds touch the block,
-wet = WSE > ground, label the wet cells (8-neighbour), find the labels under the
+lower the ground inside the channel where the sections' channel was replaced
+(:mod:`geoflow.mapping.channel`), wet = WSE > ground, label the wet cells (8-neighbour), find the labels under the
 centreline. Values at a cell depend only on its grid position, never on the block cut.
 """
 from __future__ import annotations
@@ -19,6 +20,8 @@ from rasterio.windows import Window
 from scipy import ndimage
 from shapely.geometry import Polygon
 
+from .channel import ChannelLowering
+
 EIGHT = np.ones((3, 3), dtype=bool)
 CHUNK_CELLS = 1 << 20        # interpolate at most this many cells at once (bounds temporaries)
 
@@ -30,9 +33,12 @@ class Surface:
     end leaves the quad dry); further rows (e.g. friction slope) are interpolated with the
     same weights. Quad i = section line i + reversed line i+1, repaired with make_valid, and cut
     to ``clip`` (the reach's own area, see :meth:`geoflow.sections.territory.Territory.claim`) if given.
+    When some section's channel ground differs from the DEM, ``lowering`` interpolates how far
+    the ground is lowered (one more row after ``values``; :mod:`geoflow.mapping.channel`, in the
+    frame of the reach's ``centreline``).
     """
 
-    def __init__(self, sections, values: np.ndarray, clip=None):
+    def __init__(self, sections, values: np.ndarray, clip=None, centreline=None):
         self.values = np.atleast_2d(np.asarray(values, dtype=np.float64))
         wse = self.values[0]
         quads, index = [], []
@@ -48,6 +54,7 @@ class Surface:
         self.index = np.array(index, dtype=np.int64)
         self.bounds = shapely.bounds(self.quads) if quads else np.zeros((0, 4))
         self.pieces = _pieces([s.line for s in sections])   # (N, P, 4): x0, y0, x1, y1 of each straight piece
+        self.lowering = ChannelLowering.from_sections(sections, centreline)
 
     def touching(self, left: float, bottom: float, right: float, top: float) -> np.ndarray:
         """Indices (into ``quads``) of the quads whose bounds meet the box."""
@@ -55,13 +62,14 @@ class Surface:
         return np.flatnonzero((b[:, 0] <= right) & (b[:, 2] >= left) & (b[:, 1] <= top) & (b[:, 3] >= bottom))
 
     def interpolate(self, grid_transform: Affine, row_off: int, col_off: int, shape_rc, sel=None) -> np.ndarray:
-        """(k, rows, cols) values on a block of the grid; NaN outside every quad.
+        """(k, rows, cols) values on a block of the grid (k + 1 with the lowering row); NaN outside every quad.
 
         Cell (r, c) of the block has its centre at grid cell (row_off + r, col_off + c), so
         the numbers do not depend on how the grid is cut into blocks. A cell inside several
         quads takes the lowest index (the most upstream pair).
         """
-        out = np.full((self.values.shape[0],) + tuple(shape_rc), np.nan)
+        rows = self.values.shape[0] + (self.lowering is not None)
+        out = np.full((rows,) + tuple(shape_rc), np.nan)
         sel = self.touching(*block_bounds(grid_transform, row_off, col_off, shape_rc)) if sel is None else sel
         if sel.size == 0:
             return out
@@ -85,7 +93,10 @@ class Surface:
         d_dn = point_polyline_distance(x, y, self.pieces[idx + 1])
         total = d_up + d_dn
         w_up = np.divide(d_dn, total, out=np.ones_like(total), where=total > 0)
-        return w_up * self.values[:, idx] + (1.0 - w_up) * self.values[:, idx + 1]
+        vals = w_up * self.values[:, idx] + (1.0 - w_up) * self.values[:, idx + 1]
+        if self.lowering is None:
+            return vals
+        return np.vstack([vals, self.lowering.at(x, y, idx, w_up)[None, :]])
 
 
 def polygonal(geom):
@@ -190,12 +201,14 @@ def compute_block(ctx, grid: Grid, win: Window) -> BlockData | None:
         return None
     ground = grid.read_ground(ctx.dem, win)
     vals = ctx.surface.interpolate(grid.transform, int(win.row_off), int(win.col_off), shape_rc, sel)
+    if ctx.surface.lowering is not None:
+        ground = ground - np.nan_to_num(vals[-1])       # the channel the sections use, below the DEM
     with np.errstate(invalid="ignore"):
         depth = vals[0] - ground
         wet = np.isfinite(depth) & (depth > 0)
+    transform = grid.transform @ Affine.translation(win.col_off, win.row_off)
     depth[~wet] = np.nan
     labels, count = ndimage.label(wet, structure=EIGHT)
-    transform = grid.transform @ Affine.translation(win.col_off, win.row_off)
     seeded = np.zeros(0, dtype=np.int32)
     line = shapely.clip_by_rect(ctx.centreline, box[0] - ctx.cell, box[1] - ctx.cell,
                                 box[2] + ctx.cell, box[3] + ctx.cell)

@@ -18,8 +18,13 @@ Method
    In bends consecutive lines may cross and the quad self-intersects; it is repaired with
    ``shapely.make_valid`` (two triangles) and still rasterised. A cell inside several quads
    takes the lowest index i (the most upstream pair). Quads with a NaN WSE at either end
-   are left dry.
-3. Depth = WSE - ground where positive and 8-connected (``scipy.ndimage.label``) to the
+   are left dry. Where reaches meet, the quads are cut to the reach's own area (``clip``: the
+   territory rule of :mod:`geoflow.sections.territory`), so no cell is mapped by two reaches and
+   no reach maps another's channel.
+3. Ground: the DEM, lowered inside the channel where the sections' channel ground was replaced
+   by surveyed points or a cut shape (:mod:`geoflow.mapping.channel`), so depth is measured to
+   the channel the profile used, not to the flown water surface.
+   Depth = WSE - ground where positive and 8-connected (``scipy.ndimage.label``) to the
    channel seed: the wet cells under the rasterised centreline. Wet pockets behind high
    ground that do not touch the channel are dry.
    Across blocks the labels are joined with a union-find (:mod:`geoflow.mapping.join`).
@@ -174,9 +179,12 @@ def map_reach(dem, geom, wse_at_section, cell_size: float | None = None, pad: in
     dem: geoflow.terrain.Dem; geom: ReachGeometry; wse_at_section: (N,) m, one per section;
     cell_size: output cell size in DEM CRS units (None = DEM cell size; otherwise an integer
     multiple of it); pad: cells added around the section bounds; block: block size in cells
-    (None = the whole window as one block); velocity: optional :class:`VelocityInputs`.
+    (None = the whole window as one block); velocity: optional :class:`VelocityInputs`;
+    clip: optional (Multi)Polygon (DEM CRS), the reach's own area where reaches meet
+    (:meth:`geoflow.sections.territory.Territory.claim`): the section quads are cut to it, so
+    cells outside it stay dry in this reach's map.
     """
-    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity)
+    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity, clip)
     kinds = ("wse", "depth") + (("velocity",) if velocity is not None else ())
     arrays = {k: np.full(grid.shape, np.nan, dtype=np.float32) for k in kinds}
     res = run_blocks(ctx, grid, _Sink({k: _ArrayWindows(a) for k, a in arrays.items()}))
@@ -217,7 +225,8 @@ class _Sink:
 
 
 def write_reach_maps(dem, geom, wse_at_section, paths: dict, cell_size: float | None = None, block: int = 2048,
-                     velocity: VelocityInputs | None = None, pad: int = PAD_CELLS, clip=None) -> MapSummary:
+                     velocity: VelocityInputs | None = None, pad: int = PAD_CELLS, clip=None,
+                     meta: dict | None = None) -> MapSummary:
     """Map one reach block by block and write its rasters as Cloud-Optimised GeoTIFFs.
 
     paths: {"wse" | "depth" | "velocity": output path}, any subset; each raster is float32
@@ -225,16 +234,18 @@ def write_reach_maps(dem, geom, wse_at_section, paths: dict, cell_size: float | 
     written block-wise into a temporary tiled GeoTIFF and published as a COG with overviews
     atomically (:func:`geoflow.outputs.block_raster_writer`). Only one block of ``block``
     x ``block`` cells is in memory at a time (plus GDAL's cache, set to
-    ``GDAL_CACHE_MB``). Same cells as :func:`map_reach` for any block size.
-    ``clip``: as for :func:`map_reach`. Returns a :class:`MapSummary`.
+    ``GDAL_CACHE_MB``). Same cells as :func:`map_reach` for any block size. ``clip`` as in
+    :func:`map_reach`; ``meta``: {kind: (tags, band description, unit)} written into each file.
+    Returns a :class:`MapSummary`.
     """
     paths = _check_paths(geom, paths, velocity)
+    meta = meta or {}
     ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity, clip)
     rows, cols = grid.shape
     tile = 512 if min(rows, cols) >= 4096 else 256
     with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB * 1024 * 1024), contextlib.ExitStack() as stack:
         writers = {k: stack.enter_context(outputs.block_raster_writer(p, cols, rows, grid.transform, dem.crs,
-                                                                      blocksize=tile))
+                                                                      blocksize=tile, meta=meta.get(k)))
                    for k, p in paths.items()}
         res = run_blocks(ctx, grid, _Sink(writers))
     return MapSummary(transform=grid.transform, crs=dem.crs, shape=grid.shape, extent=res.extent,
@@ -277,7 +288,8 @@ def _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity, clip=No
         raise ConfigError(f"reach {geom.reach_id}: block size {block} is too small; use at least 2 cells "
                           "(256 to 4096 are typical)")
     grid = Grid(dem_window=win, transform=transform, shape=shape_rc, factor=factor, block=size)
-    ctx = _Context(dem=dem, surface=Surface(geom.sections, values, clip), centreline=shapely.force_2d(geom.centreline),
+    centreline = shapely.force_2d(geom.centreline)
+    ctx = _Context(dem=dem, surface=Surface(geom.sections, values, clip, centreline), centreline=centreline,
                    cell=float(max(abs(transform.a), abs(transform.e))), velocity=velocity)
     return ctx, grid
 

@@ -26,7 +26,8 @@ so each is valid; a diagonal step gives two pieces) that lie on a block line hav
 outer rings merged with ``shapely.union_all`` (pieces meeting across a block edge join
 exactly, pixel edges on the same lines) and their holes put back into the merged polygon
 that contains them; then each polygon is simplified to half a cell (Douglas-Peucker),
-invalid results are repaired with make_valid, and parts under one cell are dropped. The rasters and totals do not depend on the block size (tests
+invalid results are repaired with make_valid, and parts under ``MIN_OUTLINE_PART_CELLS`` cells
+(:mod:`geoflow.constants`: cells that touch the flood only at a corner) are dropped. The rasters and totals do not depend on the block size (tests
 check it cell for cell); the outline only through the simplification (< half a cell).
 """
 from __future__ import annotations
@@ -42,6 +43,7 @@ from rasterio.windows import Window
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
+from ..constants import MIN_OUTLINE_PART_CELLS
 from .blocks import BlockData, Grid, block_layers, compute_block
 
 SMALL_POCKET = 4096          # pending ids up to this many cells are patched by their cells
@@ -216,7 +218,8 @@ def _patch(ctx, grid: Grid, sink, ledger: _Ledger, keep: np.ndarray) -> None:
 
 
 def outline(pieces: list, transform: Affine, block: int | None = None) -> list:
-    """Polygons of the union of pixel pieces (see module docstring), valid, no parts < 1 cell.
+    """Polygons of the union of pixel pieces (see module docstring), valid, no parts under
+    ``MIN_OUTLINE_PART_CELLS`` cells.
 
     ``pieces`` are valid polygons whose vertices lie on cell corners (4-connected
     polygonisation); with ``block`` only pieces on an inner block line are merged.
@@ -233,7 +236,7 @@ def outline(pieces: list, transform: Affine, block: int | None = None) -> list:
     simple[bad] = shapely.make_valid(simple[bad])
     parts = shapely.get_parts(shapely.get_parts(simple))
     parts = parts[shapely.get_type_id(parts) == 3]                 # polygons only
-    parts = parts[shapely.area(parts) >= cell_area]
+    parts = parts[shapely.area(parts) >= MIN_OUTLINE_PART_CELLS * cell_area - 1e-9 * cell_area]
     return list(parts)
 
 

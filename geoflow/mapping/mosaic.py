@@ -25,10 +25,11 @@ from ..errors import InputDataError
 GRID_TOLERANCE = 1e-6        # in cells: origin offsets and cell sizes must agree to this
 
 
-def mosaic_max(paths, out_path, block: int = 2048) -> Path:
+def mosaic_max(paths, out_path, block: int = 2048, meta: tuple | None = None) -> Path:
     """Merge rasters on one grid taking the cell-wise maximum; write a COG at ``out_path``.
 
     paths: WSE (or depth) rasters of one event, e.g. of reaches meeting at a confluence.
+    ``meta``: (tags, band description, unit) written into the output's metadata.
     Returns the output path. Raises InputDataError naming the file that is off the grid.
     """
     paths = [Path(p) for p in paths]
@@ -39,7 +40,8 @@ def mosaic_max(paths, out_path, block: int = 2048) -> Path:
     crs = metas[0]["crs"]
     with rasterio.Env(GDAL_CACHEMAX=96 * 1024 * 1024), contextlib.ExitStack() as stack:
         sources = [stack.enter_context(rasterio.open(p)) for p in paths]
-        write = stack.enter_context(outputs.block_raster_writer(out_path, shape_rc[1], shape_rc[0], transform, crs))
+        write = stack.enter_context(outputs.block_raster_writer(out_path, shape_rc[1], shape_rc[0], transform, crs,
+                                                                  meta=meta))
         for r0 in range(0, shape_rc[0], block):
             for c0 in range(0, shape_rc[1], block):
                 win = Window(c0, r0, min(block, shape_rc[1] - c0), min(block, shape_rc[0] - r0))

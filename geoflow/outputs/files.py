@@ -15,18 +15,30 @@ from pathlib import Path
 
 import numpy as np
 import rasterio
+import rasterio.enums
 import rasterio.shutil
 from rasterio.io import MemoryFile
 
-from ..constants import NODATA
+from ..constants import CAUTION, NODATA
 from ..errors import GeoflowError, OutputError, is_disk_full, write_error
-from .tables import EXTENT_COLUMNS, PROFILE_COLUMNS, SECTION_COLUMNS
+from .tables import (
+    CALIBRATION_COLUMNS,
+    EXTENT_COLUMNS,
+    LAYER_MEANING,
+    PROFILE_COLUMNS,
+    RATING_COLUMNS,
+    SECTION_COLUMNS,
+    STRUCTURE_COLUMNS,
+)
 
 # printf formats per profile column; other float columns use "%.6g".
 _PROFILE_FORMATS = {
     "chainage_m": "%.3f", "discharge_m3s": "%.6g", "bed_m": "%.4f", "wse_m": "%.4f", "energy_m": "%.4f",
     "critical_wse_m": "%.4f", "velocity_ms": "%.4f", "froude": "%.4f", "alpha": "%.4f", "area_m2": "%.4f",
     "top_width_m": "%.4f", "friction_slope": "%.6g", "depth_m": "%.4f", "critical_depth_m": "%.4f",
+    "observed_wse_m": "%.4f", "computed_wse_m": "%.4f", "residual_m": "%.4f", "backwater_length_m": "%.1f",
+    "headwater_m": "%.4f", "tailwater_m": "%.4f", "structure_headwater_m": "%.4f", "q_over_crest_m3s": "%.6g",
+    "q_through_m3s": "%.6g",
 }
 
 
@@ -58,11 +70,27 @@ def atomic_path(path):
         raise
 
 
-def write_raster(path, array, transform, crs, nodata: float = NODATA, blocksize: int = 256) -> Path:
+def _describe(ds, meta) -> None:
+    """Write ``meta`` = (dataset tags, band description, band unit) into an open dataset.
+
+    GDAL metadata items, band description and unit type; the COG driver copies all three.
+    """
+    if meta is None:
+        return
+    tags, description, unit = meta
+    ds.update_tags(**tags)
+    ds.update_tags(1, units=unit)
+    ds.set_band_description(1, description)
+    ds.set_band_unit(1, unit)
+
+
+def write_raster(path, array, transform, crs, nodata: float = NODATA, blocksize: int = 256,
+                 meta: tuple | None = None) -> Path:
     """Write a 2D array as a float32 Cloud-Optimised GeoTIFF (DEFLATE, float predictor, overviews).
 
     NaN becomes ``nodata``. Tiles are ``blocksize`` square (256 or 512). Overviews are built by
-    averaging; a raster no larger than one tile still gets one overview level.
+    averaging; a raster no larger than one tile still gets one overview level. ``meta``:
+    (dataset tags, band description, band unit), e.g. from :func:`geoflow.outputs.raster_metadata`.
     """
     arr = np.asarray(array, dtype=np.float32)
     if arr.ndim != 2 or 0 in arr.shape:
@@ -79,6 +107,7 @@ def write_raster(path, array, transform, crs, nodata: float = NODATA, blocksize:
                 with mem.open(driver="GTiff", width=width, height=height, count=1, dtype="float32",
                               crs=crs, transform=transform, nodata=nodata) as src:
                     src.write(arr, 1)
+                    _describe(src, meta)
                 with mem.open() as src:
                     rasterio.shutil.copy(src, str(tmp), driver="COG", **options)
         except rasterio.errors.RasterioError as exc:
@@ -124,7 +153,7 @@ class BlockWriter:
 
 @contextlib.contextmanager
 def block_raster_writer(path, width: int, height: int, transform, crs, nodata: float = NODATA,
-                        blocksize: int = 256):
+                        blocksize: int = 256, meta: tuple | None = None):
     """Write a large float32 raster window by window, then publish it as a COG atomically.
 
     Yields a :class:`BlockWriter` ``w``: ``w(array, window)`` writes ``array`` (float, NaN =
@@ -135,7 +164,8 @@ def block_raster_writer(path, width: int, height: int, transform, crs, nodata: f
     streamed into a Cloud-Optimised GeoTIFF with overviews (``rasterio.shutil.copy``, driver
     "COG", :func:`cog_options`) under a temporary name and moved over ``path``; on error
     nothing new is left behind. Memory is bounded by the window written and GDAL's block
-    cache (``GDAL_CACHEMAX``).
+    cache (``GDAL_CACHEMAX``). ``meta`` = (dataset tags, band description, band unit) is written
+    into the file's GDAL metadata (it survives the COG copy).
     """
     path = Path(path)
     if blocksize not in (256, 512):
@@ -147,6 +177,7 @@ def block_raster_writer(path, width: int, height: int, transform, crs, nodata: f
         try:
             with rasterio.open(build, "w+", width=width, height=height, count=1, dtype="float32", crs=crs,
                                transform=transform, nodata=nodata, **tiled_gtiff_options(blocksize)) as dst:
+                _describe(dst, meta)
                 yield BlockWriter(dst, nodata)
             with rasterio.open(build) as src:
                 rasterio.shutil.copy(src, str(tmp), driver="COG", **cog_options(width, height, blocksize))
@@ -186,8 +217,27 @@ def _ordered(df, required, where: Path):
 
 def write_profile_csv(path, df) -> Path:
     """Write the profile table as CSV with the contract column order (extra columns after)."""
+    return _write_csv(path, df, PROFILE_COLUMNS)
+
+
+def write_calibration_csv(path, df) -> Path:
+    """Write calibration.csv (observed against computed levels) with its contract columns first."""
+    return _write_csv(path, df, CALIBRATION_COLUMNS)
+
+
+def write_rating_csv(path, df) -> Path:
+    """Write rating_curves.csv with its contract columns first."""
+    return _write_csv(path, df, RATING_COLUMNS)
+
+
+def write_structures_csv(path, df) -> Path:
+    """Write structures.csv (headwater, tailwater and control of each structure) with its contract columns first."""
+    return _write_csv(path, df, STRUCTURE_COLUMNS)
+
+
+def _write_csv(path, df, columns) -> Path:
     path = Path(path)
-    out = _ordered(df, PROFILE_COLUMNS, path)
+    out = _ordered(df, columns, path)
     for col in out.columns:
         if col == "flags":
             out[col] = _join_flags(out[col])
@@ -196,6 +246,22 @@ def write_profile_csv(path, df) -> Path:
     with atomic_path(path) as tmp:
         out.to_csv(tmp, index=False, lineterminator="\n")
     return path
+
+
+def read_raster(path, max_cells: int | None = None):
+    """(float64 array with NaN for no data, (left, bottom, right, top), metadata tags) of band 1.
+
+    With ``max_cells`` the raster is read decimated (from its overviews when it has them) so
+    that neither side exceeds ``max_cells``; for figures, not for computation.
+    """
+    try:
+        with rasterio.open(path) as ds:
+            scale = max(1.0, max(ds.width, ds.height) / max_cells) if max_cells else 1.0
+            shape = (max(1, round(ds.height / scale)), max(1, round(ds.width / scale)))
+            arr = ds.read(1, out_shape=shape, masked=True, resampling=rasterio.enums.Resampling.average)
+            return np.asarray(arr.astype(np.float64).filled(np.nan)), tuple(ds.bounds), ds.tags()
+    except rasterio.errors.RasterioError as exc:
+        raise OutputError(f"{path}: cannot read this raster back ({exc}); run again to rewrite it") from None
 
 
 def _write_gpkg(path, gdf, layer: str, required, promote_to_multi: bool) -> Path:
@@ -207,7 +273,9 @@ def _write_gpkg(path, gdf, layer: str, required, promote_to_multi: bool) -> Path
         out["flags"] = _join_flags(out["flags"])
     with atomic_path(path) as tmp:
         try:
-            out.to_file(tmp, layer=layer, driver="GPKG", engine="pyogrio", promote_to_multi=promote_to_multi)
+            out.to_file(tmp, layer=layer, driver="GPKG", engine="pyogrio", promote_to_multi=promote_to_multi,
+                        layer_options={"DESCRIPTION": LAYER_MEANING[layer]},
+                        layer_metadata={"description": LAYER_MEANING[layer], "caution": CAUTION})
         except Exception as exc:          # pyogrio/GDAL raise several types
             raise write_error(f"{path} (layer {layer!r})", exc) from None
     return path

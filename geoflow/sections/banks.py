@@ -1,4 +1,4 @@
-"""Bank stations from the ground profile alone, for sections with no channel land cover.
+"""Channel edges from the ground profile alone, for sections with no channel land cover.
 
 Method (common practice, no source): top of bank by break in slope.
 

@@ -28,7 +28,7 @@ from ..errors import GeometryError
 from ..records import ReachGeometry
 from .common import build_sections, check_inside, check_positive, sample_many
 from .sidelimits import adaptive_halves, confluence_halves
-from .stations import chainages, frame, grid_stations, stations_about_centre
+from .stations import chainages, chord_points, frame, grid_stations, stations_about_centre, with_spans
 from .valleycut import cut_valley_sections
 
 LAYOUTS = ("straight", "valley", "auto")
@@ -41,7 +41,7 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
                  sample_step: float | None = None, smoothing: float | None = None,
                  repair: bool = True, others=None, rise: float | None = None,
                  rise_margin: float | None = None, follow_grid: bool = True, layout: str = "straight",
-                 channel=None, territory=None, strips=None) -> ReachGeometry:
+                 channel=None, territory=None, strips=None, spans=()) -> ReachGeometry:
     """Cut cross-sections every ``spacing`` m along ``centreline`` and sample the ground.
 
     Sections sit at chainage 0, spacing, 2·spacing, ... and at the downstream end L (if the
@@ -73,6 +73,14 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
     land-cover polygons such as roads) and the DEM's ridges keep sections from running along
     embankments. Floodplain lengths are then measured between the floodplain legs along the
     flow (:func:`geoflow.sections.lengths.flow_path_lengths`).
+
+    ``spans``: (upstream, downstream) chainage pairs (m) to keep free of sections, e.g. the
+    faces of a structure: a section is cut at both ends of each span, none inside it, and the
+    regular ones within spacing/10 of it are dropped (the reach ends are kept). The two end
+    sections of a span share the direction of the centreline at the span's middle, so they are
+    parallel. In the dog-leg layouts the span ends are kept through every later step (no
+    section is moved onto, added inside or dropped from a span; a raised strip that a span
+    crosses takes the span ends as its faces).
     """
     rid = str(reach_id)
     step = float(sample_step) if sample_step is not None else float(dem.cell_size)
@@ -83,13 +91,15 @@ def cut_sections(reach_id: str, centreline: LineString, dem, spacing: float, wid
     check_inside(rid, line, dem.bounds)
     length = float(line.length)
     h = float(smoothing) if smoothing is not None else 0.5 * float(spacing)
+    spans = [(float(a), float(b)) for a, b in spans]
     if layout != "straight":
         if layout not in LAYOUTS:
             raise GeometryError(f"reach {rid}: section layout {layout!r} is not one of {', '.join(LAYOUTS)}")
         return cut_valley_sections(rid, line, dem, float(spacing), float(width), step, h, repair, rise, rise_margin,
-                                   follow_grid, layout, channel, territory, strips)
-    chain = chainages(rid, length, float(spacing))
-    centre, left_normal = frame(rid, line, chain, h, min(max(step, 0.1 * float(spacing)), h))
+                                   follow_grid, layout, channel, territory, strips, spans)
+    chain = with_spans(chainages(rid, length, float(spacing)), spans, float(spacing))
+    centre, left_normal = frame(rid, line, chain, h, min(max(step, 0.1 * float(spacing)), h),
+                                chord_points(chain, spans))
     flags: list[list[str]] = [[] for _ in chain]
     warnings: list[str] = []
     half = _side_lengths(rid, line, chain, centre, left_normal, dem, float(spacing), float(width), step,

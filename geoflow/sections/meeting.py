@@ -14,12 +14,13 @@ from .doglegs import Sides
 from .territory import own_extent
 
 
-def off_other_channels(ctx, chain, territory, who, flags_extra, warnings) -> np.ndarray:
+def off_other_channels(ctx, chain, territory, who, flags_extra, warnings, fixed=None) -> np.ndarray:
     """Sections whose channel leg would reach into another reach's channel moved along the centreline.
 
     At a confluence a section centred where the tributary's channel meets this one would end in
     that channel's trench. It is moved, a sample step at a time (at most half a spacing, keeping a
     fifth of a spacing from its neighbours), to the nearest position whose channel leg is clear.
+    ``fixed`` (N,): sections never moved (the faces of a structure).
     """
     foreign = territory.other_channels(who)
     if foreign.is_empty:
@@ -32,7 +33,8 @@ def off_other_channels(ctx, chain, territory, who, flags_extra, warnings) -> np.
         return shapely.intersects(shapely.linestrings(ends), foreign)
 
     new = chain.copy()
-    for k in np.flatnonzero(touches(chain)):
+    movable = np.ones(chain.size, dtype=bool) if fixed is None else ~np.asarray(fixed, dtype=bool)
+    for k in np.flatnonzero(touches(chain) & movable):
         lo = new[k - 1] + 0.2 * ctx.spacing if k > 0 else chain[k]
         hi = new[k + 1] - 0.2 * ctx.spacing if k + 1 < chain.size else chain[k]
         j = np.arange(1, int(0.5 * ctx.spacing / ctx.step) + 1) * ctx.step
@@ -114,12 +116,20 @@ def low_end_at_other_reach(ctx, sides: Sides, territory, who) -> np.ndarray:
     return foreign & low
 
 
-def drop_squeezed(rid, sides: Sides, chain, flags, warnings, step):
-    """Sections left with under two sample steps between other reaches' areas are dropped."""
+def drop_squeezed(rid, sides: Sides, chain, flags, warnings, step, fixed=None):
+    """Sections left with under two sample steps between other reaches' areas are dropped.
+
+    ``fixed``: (N,) sections that must stay (the faces of a structure); one of them squeezed is an error.
+    """
     total = sides.length.sum(axis=1)
     keep = total >= 2.0 * step
     if keep.all():
         return sides, chain, flags
+    if fixed is not None and (~keep & fixed).any():
+        k = int(np.flatnonzero(~keep & fixed)[0])
+        raise GeometryError(f"reach {rid}: the structure face at chainage {chain[k]:.1f} m lies in another reach's "
+                            f"area (it keeps only {total[k]:.1f} m); move the structure's chainage away from the "
+                            "junction")
     if keep.sum() < 2:
         k = int(np.flatnonzero(~keep)[0])
         raise GeometryError(f"reach {rid}: section {k} (chainage {chain[k]:.1f} m) keeps only {total[k]:.1f} m between "

@@ -1,9 +1,14 @@
 """Where sections sit and where they are sampled: chainages, the smoothed channel frame, stations.
 
-Pure geometry on shapely/numpy (the DEM's ``transform`` only, for its grid of cell centres).
+Also adding stations to a cut section without changing its ground (:func:`insert_stations`), what
+a new channel shape or survey needs first.
+
+Pure geometry on shapely/numpy (the DEM's ``transform`` only, for its grid of cell centres) and
+:class:`geoflow.records.Section` records.
 """
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -11,6 +16,9 @@ import shapely
 from shapely.geometry import LineString
 
 from ..errors import GeometryError
+from ..records import Section
+
+STATION_TOLERANCE = 1e-4     # m: a new station this close to an existing one is not added
 
 
 def grid_stations(transform, start: np.ndarray, end: np.ndarray, stations: np.ndarray, step: float,
@@ -102,12 +110,49 @@ def chainages(rid: str, length: float, spacing: float, even_end: bool = False) -
     return chain
 
 
-def frame(rid: str, line: LineString, chain: np.ndarray, smoothing: float, h_min: float):
-    """Centre points (N, 2) and unit LEFT normals (N, 2) from the smoothed chord direction."""
+def with_spans(chain: np.ndarray, spans, spacing: float) -> np.ndarray:
+    """Chainages with the ends of each span added and none inside it.
+
+    ``spans``: (upstream, downstream) chainage pairs (m) to keep free of sections, e.g. the faces
+    of a structure: a section is cut at both ends of each span, none inside it, and the others
+    within spacing/10 of it are dropped (the reach ends are kept).
+    """
+    if not len(spans):
+        return chain
+    ends = [float(x) for span in spans for x in span]
+    keep = np.ones(chain.size, dtype=bool)
+    for a, b in spans:
+        keep &= ~((chain > a - 0.1 * spacing) & (chain < b + 0.1 * spacing))
+    keep[[0, -1]] = [all(abs(chain[0] - e) > 1e-6 for e in ends), all(abs(chain[-1] - e) > 1e-6 for e in ends)]
+    return np.union1d(chain[keep], ends)
+
+
+def chord_points(chain: np.ndarray, spans) -> np.ndarray:
+    """The chainage whose direction each section takes: its own, the span's middle for the two
+    ends of a span (so the faces of a structure are parallel)."""
+    at = np.asarray(chain, dtype=float).copy()
+    for a, b in spans:
+        at[np.isin(chain, [float(a), float(b)])] = 0.5 * (float(a) + float(b))
+    return at
+
+
+def in_spans(chain: np.ndarray, spans, spacing: float) -> np.ndarray:
+    """Whether each chainage lies inside a span or within spacing/10 of one without being its end."""
+    chain = np.asarray(chain, dtype=float)
+    out = np.zeros(chain.shape, dtype=bool)
+    for a, b in spans:
+        out |= (chain > a - 0.1 * spacing) & (chain < b + 0.1 * spacing) & ~np.isin(chain, [float(a), float(b)])
+    return out
+
+
+def frame(rid: str, line: LineString, chain: np.ndarray, smoothing: float, h_min: float, chord_at=None):
+    """Centre points (N, 2) and unit LEFT normals (N, 2) from the smoothed chord direction
+    (taken at ``chord_at``, default the chainages themselves)."""
     length = float(line.length)
-    h = np.clip(np.minimum(chain, length - chain), h_min, smoothing)
-    a = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(chain - h, 0.0, length)))
-    b = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(chain + h, 0.0, length)))
+    at = chain if chord_at is None else np.asarray(chord_at, dtype=float)
+    h = np.clip(np.minimum(at, length - at), h_min, smoothing)
+    a = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(at - h, 0.0, length)))
+    b = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(at + h, 0.0, length)))
     centre = shapely.get_coordinates(shapely.line_interpolate_point(line, chain))
     d = b - a
     norm = np.hypot(d[:, 0], d[:, 1])
@@ -119,3 +164,32 @@ def frame(rid: str, line: LineString, chain: np.ndarray, smoothing: float, h_min
         )
     t = d / norm[:, None]
     return centre, np.column_stack((-t[:, 1], t[:, 0]))  # rotate the flow direction +90 deg: left
+
+
+def insert_stations(section: Section, new_stations) -> Section:
+    """The section with stations added at ``new_stations`` (m from the left end).
+
+    Ground (and ``dem_elevation``) at a new station is interpolated linearly between its
+    neighbours; the segment it falls in is split in two that keep its n, land-cover class,
+    part and storage. Stations outside the section, or within STATION_TOLERANCE of an existing one, are skipped.
+    """
+    st = section.station
+    add = np.unique(np.asarray(new_stations, dtype=np.float64).ravel())
+    add = add[(add > st[0] + STATION_TOLERANCE) & (add < st[-1] - STATION_TOLERANCE)]
+    if add.size:
+        near = np.min(np.abs(add[:, None] - st[None, :]), axis=1)
+        add = add[near > STATION_TOLERANCE]
+    if add.size > 1:
+        add = add[np.concatenate(([True], np.diff(add) > STATION_TOLERANCE))]
+    if add.size == 0:
+        return section
+    station = np.union1d(st, add)
+    owner = np.clip(np.searchsorted(st, 0.5 * (station[:-1] + station[1:])) - 1, 0, st.size - 2)
+    changes = {"station": station, "elevation": np.interp(station, st, section.elevation)}
+    if section.dem_elevation is not None:
+        changes["dem_elevation"] = np.interp(station, st, section.dem_elevation)
+    for name in ("n", "landcover", "part", "storage"):
+        values = getattr(section, name)
+        if values is not None:
+            changes[name] = np.asarray(values)[owner]
+    return dataclasses.replace(section, **changes)

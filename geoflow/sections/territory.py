@@ -7,7 +7,7 @@ Pure geometry on shapely/numpy. The rule (our own; no published source), first m
    channels meet (a confluence) the receiving reach's channel wins (between reaches of equal
    rank, the nearer one).
 2. **Banks.** A strip along each channel as wide as the margin its sections' channel leg takes
-   beyond the channel edge (:func:`geoflow.sections.channel.bend_distances`) belongs to that reach;
+   beyond the channel edge (:func:`geoflow.sections.channel_leg.bend_distances`) belongs to that reach;
    where two overlap, to the reach whose centreline is nearer. So a section never ends inside its
    own channel or on its bank, and a tributary's sections stop at the receiving channel's bank.
 3. **A tributary's mouth area.** A tributary (a reach that flows into another, by its junction

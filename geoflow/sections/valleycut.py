@@ -9,11 +9,14 @@ Pure geometry on shapely/numpy; the DEM is reached only through ``dem.sample(x, 
 2. the valley axis (:mod:`geoflow.sections.valley`); layout ``"auto"`` bends the sections only when
    they reach beyond the meander belt (half the width exceeds the belt half-width plus the
    channel's half top width), otherwise they stay straight across the channel as before;
-3. channel edges along the channel normal (:mod:`geoflow.sections.channel`), the bends just beyond
+3. channel edges along the channel normal (:mod:`geoflow.sections.channel_leg`), the bends just beyond
    them, and the side paths (:mod:`geoflow.sections.doglegs`). Dog-leg sections span the same
    strip of valley, ``width`` / 2 either side of the valley axis (so a meander swinging to one
    side does not leave the far side of the valley uncovered);
 4. sections that run along a narrow raised strip are moved to its faces (:mod:`geoflow.sections.strips`);
+   the faces of a structure (``spans``, :mod:`geoflow.sections.faces`) are pinned: cut first, never
+   moved or dropped by the later steps, no section inside a span, and a raised strip a span crosses
+   takes the span ends as its faces (a bridge at a road gets one pair of faces, not two);
 5. side lengths: adaptive width, then the territory, then crossings within the reach repaired
    by shortening;
 6. stations along each straight piece at the DEM's creases, ground sampled.
@@ -26,13 +29,13 @@ import shapely
 from ..errors import GeometryError
 from ..records import ReachGeometry
 from . import strips as strip_rules
-from .channel import bend_distances, channel_edges
+from .channel_leg import bend_distances, channel_edges
 from .common import build_sections, sample_many
 from .doglegs import Sides, across_valley_lengths, crossing_pairs, dogleg_sides, shorten_crossings
 from .lengths import flow_path_lengths
 from .meeting import drop_squeezed, edges_added, low_end_at_other_reach, off_other_channels, whole_channel_leg
 from .sidelimits import adaptive_halves
-from .stations import chainages, frame, grid_stations, stations_about_centre
+from .stations import chainages, chord_points, frame, grid_stations, stations_about_centre, with_spans
 from .territory import own_extent, own_reach_end
 from .valley import valley_of
 
@@ -40,7 +43,7 @@ MIN_WIDTH_FRACTION = 0.1
 
 
 def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, rise_margin, follow_grid,
-                        layout, channel, territory, strips) -> ReachGeometry:
+                        layout, channel, territory, strips, spans=()) -> ReachGeometry:
     """See :func:`geoflow.sections.cut_sections` (``layout`` "valley" or "auto") and the module notes."""
     flags_extra: dict[float, list[str]] = {}
     warnings: list[str] = []
@@ -51,7 +54,7 @@ def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, r
     if territory is not None:
         end = own_reach_end(territory, who, line, step, drafting)
     valley = valley_of(line, width)
-    ctx = _Context(rid, line, dem, float(spacing), float(width), step, h, valley, channel)
+    ctx = _Context(rid, line, dem, float(spacing), float(width), step, h, valley, channel, spans)
     if territory is not None and end >= length - 1e-6:
         end = whole_channel_leg(ctx, territory, who, drafting, length)     # a line drawn to the other's bank
     if end < length - 1e-6:
@@ -59,7 +62,8 @@ def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, r
         warnings.append(f"reach {rid}: sections end at chainage {end:.1f} m of {length:.1f} m, at the edge of "
                         "another reach's channel (its junction boundary still reads that reach's level where this "
                         "one meets its channel)")
-    chain = chainages(rid, end, float(spacing), even_end=True)
+    ctx.spans = [(a, b) for a, b in ctx.spans if b <= end + 1e-6]     # one beyond the end has no faces here
+    chain = with_spans(chainages(rid, end, float(spacing), even_end=True), ctx.spans, ctx.spacing)
     ctx.bent = layout == "valley" or _beyond_belt(ctx, chain)
     if ctx.bent:
         chain = _spread_along_valley(ctx, chain, warnings)
@@ -67,13 +71,14 @@ def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, r
         chain = _off_strips(ctx, chain, strips, flags_extra, warnings)
     area = (territory, who, drafting)
     if territory is not None and ctx.bent:
-        chain = off_other_channels(ctx, chain, territory, who, flags_extra, warnings)
+        chain = off_other_channels(ctx, chain, territory, who, flags_extra, warnings, fixed=ctx.pinned(chain))
     if territory is not None:
         scratch: list[str] = []
         sides, _ = _laid_out(ctx, chain, area, rise, rise_margin, repair, flags_extra, scratch)
         chain = edges_added(ctx, chain, sides, area, flags_extra)
+    chain = with_spans(np.unique(chain), ctx.spans, ctx.spacing)     # nothing moved or added into a span
     sides, flags = _laid_out(ctx, chain, area, rise, rise_margin, repair, flags_extra, warnings)
-    sides, chain, flags = drop_squeezed(rid, sides, chain, flags, warnings, step)
+    sides, chain, flags = drop_squeezed(rid, sides, chain, flags, warnings, step, fixed=ctx.pinned(chain))
     lines = sides.lines()
     stations = [_stations(sides, k, step, dem, follow_grid) for k in range(chain.size)]
     pts = [shapely.get_coordinates(shapely.line_interpolate_point(lines[k], st)) for k, st in enumerate(stations)]
@@ -88,13 +93,25 @@ def cut_valley_sections(rid, line, dem, spacing, width, step, h, repair, rise, r
 class _Context:
     """What every step of one reach's cut needs (a small bag of values, no logic beyond frames)."""
 
-    def __init__(self, rid, line, dem, spacing, width, step, h, valley, channel):
+    def __init__(self, rid, line, dem, spacing, width, step, h, valley, channel, spans=()):
         self.rid, self.line, self.dem, self.spacing, self.width = rid, line, dem, spacing, width
         self.step, self.h, self.valley, self.channel = step, h, valley, channel
+        self.spans = list(spans)
         self.bent = True
 
     def frame(self, chain):
-        return frame(self.rid, self.line, chain, self.h, min(max(self.step, 0.1 * self.spacing), self.h))
+        chain = np.asarray(chain, dtype=float)
+        return frame(self.rid, self.line, chain, self.h, min(max(self.step, 0.1 * self.spacing), self.h),
+                     chord_points(chain, self.spans))
+
+    def pinned(self, chain) -> np.ndarray:
+        """Whether each chainage is a structure face (the end of a span)."""
+        ends = [float(x) for span in self.spans for x in span]
+        return np.isin(np.asarray(chain, dtype=float), ends)
+
+    def span_between(self, lo: float, hi: float) -> bool:
+        """Whether a span lies between the chainages ``lo`` and ``hi`` (its faces included)."""
+        return any(lo - 1e-6 <= a and b <= hi + 1e-6 for a, b in self.spans)
 
     def sides(self, chain) -> tuple[Sides, np.ndarray]:
         centre, normal = self.frame(chain)
@@ -135,8 +152,9 @@ def _spread_along_valley(ctx: _Context, chain, warnings, share: float = 0.3) -> 
     u = np.stack([ctx.valley.frame(start[:, k, 0])[0] for k in (0, 1)], axis=1)      # (N, 2)
     gap = np.median(np.abs(np.diff(u, axis=0)), axis=0)
     keep = [0]
+    pinned = ctx.pinned(chain)
     for k in range(1, chain.size - 1):
-        if np.all(u[k] - u[keep[-1]] >= share * gap):
+        if pinned[k] or np.all(u[k] - u[keep[-1]] >= share * gap):
             keep.append(k)
     keep.append(chain.size - 1)
     if len(keep) == chain.size:
@@ -160,8 +178,15 @@ def _moved_off(ctx: _Context, chain, share_at, flags_extra, warnings) -> np.ndar
     """Every section that runs along a raised strip moved to (or split at) its faces."""
     share = share_at(chain)
     bad = np.flatnonzero(share > strip_rules.ALONG_SHARE)
+    pinned = ctx.pinned(chain)
     new = list(chain)
     for k in bad[::-1]:
+        if pinned[k]:
+            flags_extra.setdefault(float(chain[k]), []).append("along_strip")
+            warnings.append(f"reach {ctx.rid}: the structure face at chainage {chain[k]:.1f} m runs along a road or "
+                            f"embankment ({share[k]:.0%} of a floodplain leg); check the structure's chainage and "
+                            "length")
+            continue
         faces, found = strip_rules.face_positions(chain, int(k), ctx.spacing, ctx.step, share_at)
         if not found:
             flags_extra.setdefault(float(chain[k]), []).append("along_strip")
@@ -190,6 +215,8 @@ def _faces_added(ctx: _Context, chain, share_at, flags_extra, warnings) -> np.nd
     blocked = strip_rules.blocked_gaps(sides, ctx.valley, ctx.dem, ctx.step)
     add: list[float] = []
     for k in np.flatnonzero(blocked > strip_rules.ALONG_SHARE):
+        if ctx.span_between(chain[k], chain[k + 1]):
+            continue                  # a structure's faces stand at this crossing
         cand = np.arange(chain[k] + ctx.step, chain[k + 1] - 0.5 * ctx.step, ctx.step)
         if cand.size < 3:
             continue

@@ -34,7 +34,7 @@ def test_trapezoid_matches_scipy_froude_condition():
 
 def test_chow_channel_critical_depth():
     # Chow (1959) channel, b = 20 ft, z = 2, Q = 400 cfs, g = 32.2: y_c = 2.15 ft (from memory);
-    # REFERENCES 2.1 computed 2.1477 ft. Units converted here, not in the code.
+    # 2.1477 ft computed from Q^2 T/(g A^3) = 1 (Chow 1959, ch. 3). Units converted here, not in the code.
     t = trapezoid(20 * FT, 2.0, 10 * FT)
     yc = critical_wse(t, 400 * FT ** 3, g=32.2 * FT).wse[0] / FT
     assert yc == pytest.approx(2.1477, abs=5e-4)

@@ -31,7 +31,7 @@ def test_trapezoid_properties_closed_form():
 
 
 def test_compound_alpha_beta_with_walls():
-    # REFERENCES 3.1, computed example: alpha = 2.5922, beta = 1.4163 with 1 m outer walls in P.
+    # Chow (1959, ch. 2) formulas, example computed with them: alpha = 2.5922, beta = 1.4163 with 1 m outer walls in P.
     # Vertical channel banks are segments with equal stations; walls are added above the ends.
     x = [0, 50, 50, 60, 60, 110]
     z = [2, 2, 0, 0, 2, 2]
@@ -45,8 +45,8 @@ def test_compound_alpha_beta_with_walls():
     assert p.not_contained[0] and not properties(t, 1.9).not_contained[0]
 
 
-def test_overbank_split_at_n_change_and_horton_channel_n():
-    # Horton/Einstein composite n (Chow 1959, ch. 6, from memory; REFERENCES 3.4)
+def test_floodplain_split_at_n_change_and_horton_channel_n():
+    # Horton/Einstein composite n (Chow 1959, ch. 6, from memory)
     x = [0, 10, 20, 20, 25, 30, 30, 40, 50]
     z = [3, 3, 3, 0, 0, 0, 3, 3, 3]
     n = [0.05, 0.08, 0.03, 0.02, 0.04, 0.03, 0.06, 0.06]
@@ -95,7 +95,7 @@ ground = st.lists(st.floats(0.0, 10.0), min_size=3, max_size=12)
        frac=st.floats(0.02, 1.2), ns=st.lists(st.floats(0.015, 0.15), min_size=11, max_size=11))
 def test_random_sections_against_shapely(z, steps, frac, ns):
     """Area, top width and wetted perimeter vs shapely polygon clipping (reference library);
-    alpha >= beta >= 1 (Cauchy-Schwarz, REFERENCES 3.1)."""
+    alpha >= beta >= 1 (Cauchy-Schwarz; Chow 1959, ch. 2)."""
     m = len(z)
     x = np.concatenate([[0.0], np.cumsum(steps[: m - 1])])
     z = np.array(z)

@@ -19,7 +19,7 @@ FIELDS = ("area", "top_width", "wetted_perimeter", "conveyance", "alpha", "beta"
 @st.composite
 def sections(draw):
     """Ground with repeated elevations (flat segments), repeated stations (vertical segments)
-    and near-flat segments; n changes so overbanks split into several subdivisions. Station
+    and near-flat segments; n changes so floodplains split into several subdivisions. Station
     steps are 0 or >= 1 mm (subnormal widths would make both paths round differently)."""
     m = draw(st.integers(3, 30))
     z = np.array(draw(st.lists(st.sampled_from([0.0, 0.5, 1.0, 1.0 + 1e-9, 2.0, 3.5])

@@ -1,7 +1,7 @@
 """Manufactured steady solutions in the manner of MacDonald et al. (1997), energy form.
 
 MacDonald, Baines, Nichols & Samuels (1997), J. Hydraul. Eng. 123(11):1041-1045: choose the depth
-h(x), derive the bed so that h(x) is exact. Energy form (REFERENCES 1.2):
+h(x), derive the bed so that h(x) is exact. Energy form (MacDonald et al. 1997):
     z_b(x) = z_b(0) - [E(x) - E(0)] - int_0^x Sf(h(s)) ds,  E = h + Q^2/(2 g A^2), Sf = Q^2/K^2
 in a prismatic trapezoid (one subdivision, alpha = 1). The integral is taken with scipy quad.
 A standard-step run then differs from h(x) only through the discrete friction term: O(dx^2).
@@ -41,12 +41,12 @@ def bed(x, h):
     return 100.0 - (e - e[0]) - friction
 
 
-def run(dx, h, regime):
+def run(dx, h, regime, engine):
     x = np.arange(0.0, LENGTH + dx / 2, dx)
     zb = bed(x, h)
     tables = [build_table([0, 5 * Z, 5 * Z + B, 10 * Z + B], [z + 5, z, z, z + 5],
                           [N] * 3, [1] * 3) for z in zb]
-    opts = SolverOptions(regime=regime, contraction=0.0, expansion=0.0, tolerance=1e-7)
+    opts = SolverOptions(regime=regime, contraction=0.0, expansion=0.0, tolerance=1e-7, engine=engine)
     lengths = np.repeat(np.diff(x)[:, None], 3, 1)
     if regime == "subcritical":
         prof = solve_profile(tables, lengths, np.full(x.size, Q),
@@ -60,13 +60,13 @@ def run(dx, h, regime):
 @pytest.mark.parametrize("h,regime,froude_ok", [
     (depth_sub, "subcritical", lambda fr: fr.max() < 0.8),
     (depth_super, "supercritical", lambda fr: fr.min() > 1.2)])
-def test_manufactured_profile_recovered_and_second_order(h, regime, froude_ok):
-    prof10, err10 = run(10.0, h, regime)
+def test_manufactured_profile_recovered_and_second_order(h, regime, froude_ok, engine):
+    prof10, err10 = run(10.0, h, regime, engine)
     assert froude_ok(prof10.froude)
     assert np.all(prof10.regime == regime)
     assert err10 < 0.01
-    _, err20 = run(20.0, h, regime)
-    _, err40 = run(40.0, h, regime)
-    # second order: the error ratio approaches 4 when the spacing halves (REFERENCES 1.2)
+    _, err20 = run(20.0, h, regime, engine)
+    _, err40 = run(40.0, h, regime, engine)
+    # second order: the error ratio approaches 4 when the spacing halves (MacDonald et al. 1997)
     assert 3.8 < err20 / err10 < 4.2
     assert 3.8 < err40 / err20 < 4.2

@@ -35,7 +35,7 @@ def slope_break_reach(s_up, s_dn, n_up=60, n_dn=80):
     return x, zb, tables, np.full((x.size - 1, 3), DX)
 
 
-def test_jump_on_steep_reach_at_sequent_depth():
+def test_jump_on_steep_reach_at_sequent_depth(engine):
     s1, s2 = 0.03, 0.0004
     y1, y2 = rect_normal_depth(s1), rect_normal_depth(s2)
     fr1 = Q / (B * y1) / np.sqrt(G * y1)
@@ -44,7 +44,8 @@ def test_jump_on_steep_reach_at_sequent_depth():
     x, zb, tables, lengths = slope_break_reach(s1, s2)
     prof = solve_profile(tables, lengths, np.full(x.size, Q), downstream=Boundary.normal_depth(s2),
                          upstream=Boundary.normal_depth(s1),
-                         options=SolverOptions(regime="mixed", contraction=0.0, expansion=0.0))
+                         options=SolverOptions(regime="mixed", contraction=0.0, expansion=0.0,
+                                             engine=engine))
     jumps = [i for i, f in enumerate(prof.flags) if "jump_upstream" in f]
     assert len(jumps) == 1
     j = jumps[0]
@@ -66,15 +67,16 @@ def test_jump_on_steep_reach_at_sequent_depth():
     np.testing.assert_allclose(y[j:61], s1_curve.y[0][::-1], atol=0.005)
 
 
-def test_mild_to_steep_break_passes_through_critical():
+def test_mild_to_steep_break_passes_through_critical(engine):
     s1, s2 = 0.0004, 0.03
     x, zb, tables, lengths = slope_break_reach(s1, s2, n_up=100, n_dn=60)
     prof = solve_profile(tables, lengths, np.full(x.size, Q), downstream=Boundary.normal_depth(s2),
-                         options=SolverOptions(regime="mixed", contraction=0.0, expansion=0.0))
+                         options=SolverOptions(regime="mixed", contraction=0.0, expansion=0.0,
+                                             engine=engine))
     y = prof.wse - zb
     yc = ((Q / B) ** 2 / G) ** (1 / 3)  # rectangle critical depth (Chow 1959, ch. 3, from memory)
     assert y[100] == pytest.approx(yc, abs=1e-3)
-    assert prof.regime[100] == "critical" and "critical_assumed" in prof.flags[100]
+    assert prof.regime[100] == "critical" and "critical_fallback" in prof.flags[100]
     assert np.all(prof.regime[101:] == "supercritical")
     assert np.all(prof.regime[:100] == "subcritical")
     # M2 drawdown upstream of the break vs the GVF ODE started just above critical depth
