@@ -166,8 +166,9 @@ def properties_at(reach, i, w, out):
         out[P_PERIM] += sub_p
         out[P_MOMENT] += cf[s + 7 * plane] + d * (a0 + d * (0.5 * t0 + tr * d / 6.0))
         out[P_PART_A + part] += sub_a
-        if sub_a > 0 and sub_p > 0:
-            sub_k = sub_a * (sub_a / (cf[s + 3 * plane] + cf[s + 4 * plane] * d)) ** (2.0 / 3.0)
+        nsum = cf[s + 3 * plane] + cf[s + 4 * plane] * d
+        if sub_a > 0 and sub_p > 0 and nsum > 0:             # N = 0: storage, no conveyance
+            sub_k = sub_a * (sub_a / nsum) ** (2.0 / 3.0)
             v = sub_k / sub_a
             s2 += sub_k * v
             s3 += sub_k * v * v
