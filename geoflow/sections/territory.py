@@ -101,7 +101,10 @@ class Territory:
         cell and none maps another's channel."""
         area = footprint(lines)
         others = [self.other_channels(who)] + [f for j, f in enumerate(self.footprints) if j != who and not f.is_empty]
+        above = [z for j, z in enumerate(self.zones) if j != who and self.rank[j] > self.rank[who] and not z.is_empty]
         own = self.zones[who]
+        if above and not own.is_empty:
+            own = shapely.difference(own, shapely.union_all(above))      # rule 1: the receiving channel wins
         taken = shapely.difference(shapely.union_all(others), own) if not own.is_empty else shapely.union_all(others)
         return shapely.difference(area, taken)
 
