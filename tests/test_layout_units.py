@@ -36,6 +36,19 @@ def test_valley_axis_of_a_sine_generated_meander(wavelength, omega):
     assert v.belt_half_width == pytest.approx(0.5 * (y.max() - y.min()), rel=0.05)
 
 
+@pytest.mark.parametrize("wavelength, omega, width", [(400.0, 0.5, 400.0), (1000.0, 0.6, 560.0)])
+def test_valley_axis_of_a_reach_one_meander_long(wavelength, omega, width):
+    # One wavelength from apex to apex has two heading extremes, M / 2 apart (Langbein & Leopold 1966):
+    # that one half-wavelength sets the smoothing, so the axis stays within 5 deg of the mean direction
+    # +x (with no half-wavelength measured it swung by 8.1-8.6 deg here and the end legs left the DEM
+    # of the LiDAR-like demo).
+    s, x, y, _ = sine_generated(wavelength, wavelength, omega, step=1.0)
+    v = valley_of(LineString(np.column_stack((x, y))), width=width)
+    assert v.half_wavelength == pytest.approx(wavelength / 2, rel=0.02)
+    d = np.diff(shapely.get_coordinates(v.axis), axis=0)
+    assert np.degrees(np.max(np.abs(np.arctan2(d[:, 1], d[:, 0])))) < 5.0
+
+
 def test_hysteresis_ignores_wiggles_and_smoothing_keeps_a_line():
     t = np.linspace(0, 4 * np.pi, 2001)
     sig = np.sin(t) + 0.05 * np.sin(40 * t)

@@ -7,7 +7,7 @@ Pure geometry on shapely/numpy/scipy. Method (our own; no published source):
    are the extremes of theta(s); they are found with a hysteresis of ``HYSTERESIS_DEG`` (a turn back
    by less than that is a wiggle, not a new bend), so noise and small wiggles do not count. The
    half-wavelength is the median arc distance between consecutive extremes; a line with fewer than
-   three extremes has no measurable meander.
+   two extremes has no measurable meander (two give one half-wavelength: a reach one meander long).
 2. Axis. The resampled centreline is smoothed by a Gaussian of sigma = one half-wavelength (at least
    ``width`` / 4, at most a third of the line's length). For a sine-generated meander this leaves
    exp(-pi^2 / 2) = 0.7 % of the lateral swing, so the axis runs down the middle of the meander belt.
@@ -105,7 +105,7 @@ def meander_half_wavelength(pts: np.ndarray, ds: float) -> float | None:
     d = np.diff(light, axis=0)
     theta = np.unwrap(np.arctan2(d[:, 1], d[:, 0]))
     at = extremes_with_hysteresis(theta, math.radians(HYSTERESIS_DEG))
-    if at.size < 3:
+    if at.size < 2:
         return None
     return float(np.median(np.diff(at)) * ds)
 
