@@ -13,6 +13,7 @@ References:
 """
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import pytest
 from scipy.optimize import brentq
 from shapely.geometry import LineString, box
@@ -135,3 +136,36 @@ def test_sections_kept_off_roads_and_the_embankment_raises_levels(tmp_path, in_c
     print(f"cover={in_cover}: rise upstream of the embankment {rise.min() * 1000:.0f} to {rise.max() * 1000:.0f} mm")
     assert rise.min() > -0.001
     assert rise.max() > 0.01                       # the embankment is seen at all
+
+
+def test_a_bridge_at_the_cross_road_has_one_pair_of_faces(tmp_path):
+    """A bridge where the road crosses the valley ([[structures]] at the crossing, faces just outside
+    the embankment's foot): the dog-leg layout keeps exactly its two face sections at chainage -/+
+    half its length, parallel (same direction, common practice for a structure's faces), with no
+    section between them or within spacing/10 of them, and no second pair of embankment faces from
+    the road rule (geometry by construction; chainages exact)."""
+    cfg, line = roads_valley(tmp_path / "bridge", across=True, in_cover=True)
+    crossing = ACROSS["x"] - line.coords[0][0]
+    foot = ACROSS["crest_half"] + ACROSS["side"] * ACROSS["height"]
+    length = 2.0 * (foot + 1.0)
+    crest = Z0 - SLOPE * ACROSS["x"] + ACROSS["height"]
+    with open(cfg, "a", encoding="utf-8") as f:
+        f.write(f'[[structures]]\nreach = "v"\nchainage = {crossing}\ntype = "bridge"\nid = "b1"\n'
+                f'low_chord = {crest - 0.2:.3f}\nhigh_chord = {crest + 0.1:.3f}\nlength = {length}\n')
+    res = run(cfg)
+    assert not res.failed
+    secs = gpd.read_file(res.paths["sections"], layer="sections")
+    chain = secs.chainage_m.to_numpy()
+    up, down = crossing - length / 2, crossing + length / 2
+    near = secs[np.abs(chain - crossing) < length / 2 + 5.0]
+    assert sorted(near.chainage_m) == pytest.approx([up, down], abs=1e-6)
+    near = near.sort_values("chainage_m")
+    assert list(near["flags"].str.contains("structure_upstream_face")) == [True, False]
+    assert list(near["flags"].str.contains("structure_downstream_face")) == [False, True]
+    assert not secs["flags"].str.contains("at_embankment_face|moved_off_strip").any()
+    a, b = (np.asarray(g.coords) for g in near.geometry)
+    da, db = a[-1] - a[0], b[-1] - b[0]
+    assert abs(da[0] * db[1] - da[1] * db[0]) / (np.hypot(*da) * np.hypot(*db)) < 1e-9   # parallel
+    rows = pd.read_csv(res.output_dir / "structures.csv")
+    assert list(rows.structure_id) == ["b1"] and np.isfinite(rows.headwater_m).all()
+    print(f"bridge at the cross road: faces {up:.2f} / {down:.2f} m, headwater {rows.headwater_m.iloc[0]:.3f} m")
