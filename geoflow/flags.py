@@ -187,6 +187,16 @@ def markdown_table() -> str:
 RENAMED = {"critical_assumed": "critical_fallback"}   # the word before 0.2.0 (old part files, old manifests)
 
 
+#: kinds a reviewer must judge; the other kinds describe how geoflow built the section
+REVIEW_KINDS = ("hydraulic", "input")
+
+
+def needs_review(word: str) -> bool:
+    """True for a flag of a kind in :data:`REVIEW_KINDS` (an undocumented word counts as one)."""
+    f = describe(word)
+    return f.kind in REVIEW_KINDS or f.meaning == "(not documented)"
+
+
 def describe(word: str) -> Flag:
     """The entry of a flag word (an earlier name is described under its current entry; an unknown
     word is described as such, never an error)."""

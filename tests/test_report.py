@@ -22,9 +22,9 @@ from geoflow.flags import describe
 from geoflow.outputs import PROFILE_COLUMNS
 from geoflow.records import CHANNEL, LEFT_FLOODPLAIN, RIGHT_FLOODPLAIN, ReachGeometry, Section
 from geoflow.report import MapLayers, ReachContext, event_summary, write_report
-from geoflow.report.facts import markers
+from geoflow.report.facts import markers, split_flagged
 from geoflow.report.figures import wet_window
-from geoflow.report.tables import side_by_side
+from geoflow.report.tables import id_ranges, side_by_side
 
 EVENTS = ["q10", "q100"]
 FLAGGED = {2: "not_contained;critical_fallback", 4: "boundary"}      # (q100) section -> flags
@@ -188,8 +188,18 @@ def test_event_summary_values():
     assert s.loc["q100", "largest depth (m)"] == pytest.approx(2.5 + 0.4)
     assert s.loc["q100", "mean velocity (m/s)"] == pytest.approx(1.3)
     assert s.loc["q10", "largest Froude number"] == pytest.approx(0.34)
-    assert s.loc["q10", "flagged sections"] == "none"
-    assert s.loc["q100", "flagged sections"] == "2 (not_contained, critical_fallback); 4 (boundary)"
+    assert s.loc["q10", "flags to review (sections)"] == "none"
+    assert s.loc["q100", "flags to review (sections)"] == "not_contained: 2; critical_fallback: 2"
+    assert s.loc["q100", "notes (sections)"] == "boundary: 4"       # an info flag: described, not to review
+
+
+def test_id_ranges_and_split_of_flagged_sections():
+    # Plain bookkeeping (no source needed): runs of consecutive ids; kinds from geoflow.flags.
+    assert id_ranges([5, 3, 6, 7, 12, 8]) == "3, 5-8, 12"
+    flagged = {1: {"storage": []}, 2: {"storage": [], "critical_fallback": ["q100"]}, 3: {"ground_gap_filled": []},
+               4: {"boundary": ["q2"]}}
+    review, notes = split_flagged(flagged)
+    assert list(review) == [2, 3] and list(notes) == [1, 4]
 
 
 def test_section_zoom_is_the_wet_part_not_the_valley():

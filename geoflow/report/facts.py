@@ -13,6 +13,7 @@ import shapely
 from shapely.geometry import Point
 
 from .. import __version__
+from ..flags import needs_review
 
 
 def run_facts(cfg, dem) -> list[tuple[str, str]]:
@@ -152,6 +153,14 @@ def flagged_sections(profile: pd.DataFrame, geom) -> dict[int, dict[str, list[st
             if ev not in lst:
                 lst.append(ev)
     return dict(sorted(out.items()))
+
+
+def split_flagged(flagged: dict) -> tuple[dict, dict]:
+    """(to review, with notes): sections with at least one flag a reviewer must judge (hydraulic or
+    input kind, :func:`geoflow.flags.needs_review`), and sections whose flags only describe how the
+    section was built or what it is (tool and info kinds)."""
+    review = {sid: words for sid, words in flagged.items() if any(needs_review(w) for w in words)}
+    return review, {sid: words for sid, words in flagged.items() if sid not in review}
 
 
 def chainage_range(profile: pd.DataFrame) -> str:

@@ -11,7 +11,7 @@ from matplotlib.collections import LineCollection, PolyCollection
 from matplotlib.figure import Figure
 from matplotlib.ticker import MaxNLocator
 
-from .markup import FLAG_COLOUR, event_colour
+from .markup import FLAG_COLOUR, NOTE_COLOUR, event_colour
 
 GROUND = "#8c6d46"
 WATER = "#cfe6f7"
@@ -24,12 +24,13 @@ def channel_edge_ground(section) -> tuple[float, float]:
     return float(np.interp(left, st, z)), float(np.interp(right, st, z))
 
 
-def long_profile_figure(profile: pd.DataFrame, events, geom, markers=(), flagged=None) -> Figure:
+def long_profile_figure(profile: pd.DataFrame, events, geom, markers=(), flagged=None, noted=None) -> Figure:
     """Bed, bank tops, and per event water surface, energy grade line and critical-depth line.
 
     ``markers``: (chainage m, label) drawn as labelled vertical lines (confluences, flow
-    changes, structures); ``flagged``: {section id: {word: [events]}} marked in red on the
-    water surface of the events concerned, with their numbers along the top.
+    changes, structures); ``flagged``: {section id: {word: [events]}} to review, marked in red on
+    the water surface of the events concerned, with their numbers along the top (thinned where
+    they would overlap); ``noted``: the same for sections with notes only (small purple marks).
     """
     fig = Figure(figsize=(11, 4.8))
     fig.subplots_adjust(left=0.065, right=0.99, bottom=0.11, top=0.90)
@@ -47,10 +48,12 @@ def long_profile_figure(profile: pd.DataFrame, events, geom, markers=(), flagged
         ax.plot(ev["chainage_m"], ev["wse_m"], color=colour, lw=2)
         ax.plot(ev["chainage_m"], ev["energy_m"], color=colour, lw=1.1, ls="--")
         ax.plot(ev["chainage_m"], ev["critical_wse_m"], color=colour, lw=0.9, ls=":")
-        if flagged:
-            hit = ev[ev["section_id"].isin([s for s, words in flagged.items()
-                                            if any(event in evs or not evs for evs in words.values())])]
-            ax.plot(hit["chainage_m"], hit["wse_m"], ls="none", marker="v", ms=6, color=FLAG_COLOUR)
+        for marks, style in ((noted, dict(marker="|", ms=7, color=NOTE_COLOUR)),
+                             (flagged, dict(marker="v", ms=6, color=FLAG_COLOUR))):
+            if marks:
+                hit = ev[ev["section_id"].isin([s for s, words in marks.items()
+                                                if any(event in evs or not evs for evs in words.values())])]
+                ax.plot(hit["chainage_m"], hit["wse_m"], ls="none", **style)
     ax.xaxis.set_major_locator(MaxNLocator(10))
     ax.yaxis.set_major_locator(MaxNLocator(7))
     ax.set_xlim(ch_geom.min(), ch_geom.max() + 1e-9)
@@ -61,9 +64,11 @@ def long_profile_figure(profile: pd.DataFrame, events, geom, markers=(), flagged
     if flagged:
         ids = np.array(sorted(flagged))
         at = ch_geom[np.searchsorted([s.section_id for s in geom.sections], ids)]
+        gap, last = 0.018 * (ch_geom.max() - ch_geom.min()), -np.inf      # about one label's width
         for c, sid in zip(at, ids):
-            ax.text(c, 1.01, str(sid), transform=trans, fontsize=7, color=FLAG_COLOUR, ha="center", va="bottom",
-                    rotation=90 if len(ids) > 25 else 0)
+            if c - last >= gap:
+                ax.text(c, 1.01, str(sid), transform=trans, fontsize=7, color=FLAG_COLOUR, ha="center", va="bottom")
+                last = c
     ax.set_xlabel("chainage from upstream end (m), flow left to right")
     ax.set_ylabel("elevation (m)")
     ax.grid(alpha=0.3)
@@ -98,6 +103,18 @@ def _n_runs(section):
     return [(st[a], st[b], n[a]) for a, b in zip(starts, ends)]
 
 
+def _storage_hatch(ax, section, fine, zf, level: dict) -> None:
+    """Hatch the water over storage segments (they hold water but carry no flow)."""
+    storage = getattr(section, "storage", None)
+    if storage is None or not np.any(storage) or not level:
+        return
+    st = np.asarray(section.station, dtype=float)
+    seg = np.clip(np.searchsorted(st, fine, side="right") - 1, 0, len(st) - 2)
+    top = max(level.values())
+    where = np.asarray(storage, dtype=bool)[seg] & (zf < top)
+    ax.fill_between(fine, zf, top, where=where, facecolor="none", edgecolor="#555555", hatch="///", lw=0)
+
+
 def section_figure(section, rows: pd.DataFrame, events, reuse: Figure | None = None) -> Figure:
     """One cross-section zoomed to its wet part: ground, water per event, channel edges, n strip.
 
@@ -126,6 +143,7 @@ def section_figure(section, rows: pd.DataFrame, events, reuse: Figure | None = N
         wet = zf < level[event]
         ax.fill_between(fine, zf, level[event], where=wet, color=WATER, alpha=0.8, lw=0)
         ax.plot(fine, np.where(wet, level[event], np.nan), color=event_colour(i), lw=1.8)
+    _storage_hatch(ax, section, fine, zf, level)
     ax.fill_between(st, z, y0, color=GROUND, alpha=0.35, lw=0)
     ax.plot(st, z, color=GROUND, lw=1.6)
     for s in section.channel_edges:
@@ -150,11 +168,12 @@ def section_figure(section, rows: pd.DataFrame, events, reuse: Figure | None = N
     return fig
 
 
-def section_grid_figure(sections, profile: pd.DataFrame, events, flagged=(), columns: int = 6) -> Figure:
+def section_grid_figure(sections, profile: pd.DataFrame, events, flagged=(), columns: int = 6,
+                        noted=()) -> Figure:
     """Every section as a small tile zoomed to its wet part, in one Axes (fast to draw).
 
-    Each tile has its own scales (ground brown, water per event, flagged tiles framed red) and
-    carries the section number (chainages and depths are in the page's table).
+    Each tile has its own scales (ground brown, water per event; tiles to review framed red, with
+    notes only purple) and carries the section number (chainages and depths are in the page's table).
     """
     secs = list(sections)
     rows_n = int(np.ceil(len(secs) / columns))
@@ -164,7 +183,7 @@ def section_grid_figure(sections, profile: pd.DataFrame, events, flagged=(), col
     ax.set_axis_off()
     levels = profile.pivot_table(index="section_id", columns="event", values="wse_m", aggfunc="first")
     levels = levels.reindex(index=[s.section_id for s in secs], columns=list(events)).to_numpy(dtype=float)
-    ground, frames, flag_frames, water_polys = [], [], [], []
+    ground, frames, flag_frames, note_frames, water_polys = [], [], [], [], []
     lines = {i: [] for i in range(len(events))}
     for k, s in enumerate(secs):
         col, row = k % columns, rows_n - 1 - k // columns
@@ -189,14 +208,17 @@ def section_grid_figure(sections, profile: pd.DataFrame, events, flagged=(), col
                 lines[i].append(np.column_stack(tx(fine, w)))
         box = [(col + 0.01, row + 0.01), (col + 0.99, row + 0.01), (col + 0.99, row + 0.99), (col + 0.01, row + 0.99),
                (col + 0.01, row + 0.01)]
-        (flag_frames if s.section_id in flagged else frames).append(box)
+        flag = s.section_id in flagged
+        note = not flag and s.section_id in noted
+        (flag_frames if flag else note_frames if note else frames).append(box)
         ax.text(col + 0.04, row + 0.95, str(s.section_id), fontsize=8, fontweight="bold", va="top",
-                color=FLAG_COLOUR if s.section_id in flagged else "#222")   # short: text dominates drawing time
+                color=FLAG_COLOUR if flag else NOTE_COLOUR if note else "#222")   # short: text dominates drawing
     ax.add_collection(PolyCollection(water_polys, facecolors=WATER, edgecolors="none"))
     ax.add_collection(LineCollection(ground, colors=GROUND, linewidths=1.0))
     for i, segs in lines.items():
         ax.add_collection(LineCollection(segs, colors=event_colour(i), linewidths=1.0))
     ax.add_collection(LineCollection(frames, colors="#bbbbbb", linewidths=0.6))
+    ax.add_collection(LineCollection(note_frames, colors=NOTE_COLOUR, linewidths=1.2))
     ax.add_collection(LineCollection(flag_frames, colors=FLAG_COLOUR, linewidths=1.6))
     ax.set_xlim(0, columns)
     ax.set_ylim(0, rows_n)

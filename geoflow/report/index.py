@@ -15,9 +15,10 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import MaxNLocator
 
 from ..constants import CAUTION
+from ..flags import needs_review
 from ..outputs import atomic_path
 from .markup import FLAG_COLOUR, colour_key, esc, event_colour, facts_table, figure, page, table
-from .tables import flag_words, glossary
+from .tables import flag_words, glossary, id_ranges
 
 
 @dataclass(frozen=True, eq=False)
@@ -72,15 +73,13 @@ def reach_rows(run: RunPage) -> pd.DataFrame:
             row[f"{esc(ev)}: flagged sections"] = "" if unit.get("status") != "complete" else \
                 str(unit.get("flagged_sections", ""))
         flags = _flags_of(run.profile, rid)
-        row["flags (sections)"] = esc("; ".join(f"{w} ({_ids(s)})" for w, s in sorted(flags.items()))) or "none"
+        row["flags to review (sections)"] = esc("; ".join(f"{w}: {id_ranges(s)}" for w, s in sorted(flags.items())
+                                                          if needs_review(w))) or "none"
+        row["notes (sections)"] = esc("; ".join(f"{w}: {id_ranges(s)}" for w, s in sorted(flags.items())
+                                                if not needs_review(w))) or "none"
         row["problem"] = esc(entry.get("error") or "")
         rows.append(row)
     return pd.DataFrame(rows)
-
-
-def _ids(ids) -> str:
-    ids = sorted(ids)
-    return ", ".join(map(str, ids)) if len(ids) <= 8 else f"{', '.join(map(str, ids[:8]))} ... ({len(ids)})"
 
 
 def overview_figure(run: RunPage) -> Figure | None:
@@ -97,7 +96,8 @@ def overview_figure(run: RunPage) -> Figure | None:
                  for p in shapely.get_parts(g) for r in [p.exterior, *p.interiors]]
         if rings:
             ax.add_collection(LineCollection(rings, colors=event_colour(i), linewidths=0.9))
-    flagged = {(rid, sid) for rid in run.centrelines for w, ids in _flags_of(run.profile, rid).items() for sid in ids}
+    flagged = {(rid, sid) for rid in run.centrelines for w, ids in _flags_of(run.profile, rid).items() for sid in ids
+               if needs_review(w)}
     segs = [np.asarray(line.coords)[:, :2] for key, line in run.section_lines.items() if key in flagged]
     ax.add_collection(LineCollection(segs, colors=FLAG_COLOUR, linewidths=1.2))
     for rid, line in run.centrelines.items():
@@ -124,7 +124,7 @@ def render_index(run: RunPage, caution: str = CAUTION) -> str:
     if fig is not None:
         parts += ['<h2 id="map">Overview map</h2>',
                   figure(fig, "overview map of all reaches", "North up, DEM CRS (m). Flood outline per event "
-                         "(colours as above), centrelines in dark blue, flagged sections in red.", ident="overview")]
+                         "(colours as above), centrelines in dark blue, sections with a flag to review in red.", ident="overview")]
     words = sorted({w for rid in run.reaches for w in _flags_of(run.profile, rid)})
     if words:
         parts += ['<h2 id="flags">Flag words: what they mean and what to do</h2>', table(glossary(words),

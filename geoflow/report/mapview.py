@@ -14,7 +14,7 @@ from matplotlib.colors import LightSource
 from matplotlib.figure import Figure
 from matplotlib.ticker import MaxNLocator
 
-from .markup import FLAG_COLOUR, event_colour
+from .markup import FLAG_COLOUR, NOTE_COLOUR, event_colour
 
 MAX_LABELS = 20         # section numbers written on a panel (every k-th, plus all flagged ones)
 
@@ -75,8 +75,9 @@ def _layout(bounds, n_panels: int):
     return (width, height), rects
 
 
-def map_figure(geom, layers: MapLayers, events, flagged=()) -> Figure:
-    """The map (see module docstring); ``flagged``: section ids drawn in red and always numbered."""
+def map_figure(geom, layers: MapLayers, events, flagged=(), noted=()) -> Figure:
+    """The map (see module docstring); ``flagged``: section ids to review, drawn in red and always
+    numbered; ``noted``: section ids with notes only, drawn in purple and numbered."""
     panels = list(events) or [None]
     bounds = _bounds(geom, layers)
     size, rects = _layout(bounds, len(panels))
@@ -97,7 +98,7 @@ def map_figure(geom, layers: MapLayers, events, flagged=()) -> Figure:
             image = ax.imshow(np.where(a > 0, a, np.nan), extent=(l, r, b, t), cmap="Blues", vmin=-0.3 * vmax,
                               vmax=vmax, alpha=0.85, interpolation="nearest")
         _outline(ax, layers.outlines.get(event, ()), event_colour(k))
-        _lines(ax, geom, layers, flagged)
+        _lines(ax, geom, layers, flagged, noted)
         ax.set_xlim(bounds[0], bounds[2])
         ax.set_ylim(bounds[1], bounds[3])
         ax.set_aspect("equal")
@@ -126,20 +127,24 @@ def _outline(ax, polygons, colour: str) -> None:
         ax.add_collection(LineCollection(rings, colors=colour, linewidths=1.0))
 
 
-def _lines(ax, geom, layers: MapLayers, flagged) -> None:
+def _lines(ax, geom, layers: MapLayers, flagged, noted=()) -> None:
     """Section lines (numbered), this reach's centreline, other reaches and structures."""
-    flagged = set(flagged)
+    flagged, noted = set(flagged), set(noted) - set(flagged)
     segs = [np.asarray(s.line.coords)[:, :2] for s in geom.sections]
-    red = [s.section_id in flagged for s in geom.sections]
-    ax.add_collection(LineCollection([g for g, f in zip(segs, red) if not f], colors="#333333", linewidths=0.5,
-                                     alpha=0.7))
-    ax.add_collection(LineCollection([g for g, f in zip(segs, red) if f], colors=FLAG_COLOUR, linewidths=1.6))
+    colour = [FLAG_COLOUR if s.section_id in flagged else NOTE_COLOUR if s.section_id in noted else None
+              for s in geom.sections]
+    ax.add_collection(LineCollection([g for g, c in zip(segs, colour) if c is None], colors="#333333",
+                                     linewidths=0.5, alpha=0.7))
+    ax.add_collection(LineCollection([g for g, c in zip(segs, colour) if c == NOTE_COLOUR], colors=NOTE_COLOUR,
+                                     linewidths=1.0))
+    ax.add_collection(LineCollection([g for g, c in zip(segs, colour) if c == FLAG_COLOUR], colors=FLAG_COLOUR,
+                                     linewidths=1.6))
     step = max(1, int(np.ceil(len(segs) / MAX_LABELS)))
-    for k, (s, g) in enumerate(zip(geom.sections, segs)):
-        if k % step and s.section_id not in flagged and k != len(segs) - 1:
+    for k, (s, g, c) in enumerate(zip(geom.sections, segs, colour)):
+        if k % step and c is None and k != len(segs) - 1:
             continue
         ax.text(g[0, 0], g[0, 1], str(s.section_id), fontsize=7, ha="center", va="center", fontweight="bold",
-                color=FLAG_COLOUR if s.section_id in flagged else "#111")
+                color=c or "#111")
     c = np.asarray(geom.centreline.coords)[:, :2]
     ax.plot(c[:, 0], c[:, 1], color="#0b3c8c", lw=1.4)
     for rid, line in layers.other_lines.items():

@@ -26,12 +26,14 @@ td.text,th.text,.facts td,.facts th,.glossary td,.glossary th,.reaches td,.reach
 th[colspan]{text-align:center;background:#e4ecf5} img{max-width:100%;display:block;margin:.4em 0}
 figure{margin:1em 0} figcaption{font-size:.9em;color:#333}
 .wide{overflow-x:auto} .key span.swatch{display:inline-block;width:1.8em;height:.7em;margin:0 .3em 0 1em}
-.flagged{color:#b00020;font-weight:600} .failed{color:#b00020;font-weight:600} .note{font-size:.9em;color:#444}
+.flagged{color:#b00020;font-weight:600} .noted{color:#6a3d9a;font-weight:600} .failed{color:#b00020;font-weight:600} .note{font-size:.9em;color:#444}
 """
 
 #: colour of the n-th event, the same on every figure and in the colour key
 EVENT_COLOURS = ("#1f77b4", "#ff7f0e", "#2ca02c", "#9467bd", "#8c564b", "#e377c2", "#17becf", "#bcbd22")
 FLAG_COLOUR = "#d0021b"
+#: sections whose flags are notes only (how the section was built, what it is): not for review
+NOTE_COLOUR = "#7b4fb3"
 
 
 def event_colour(i: int) -> str:

@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..flags import RENAMED, describe
+from ..flags import RENAMED, describe, needs_review
 
 #: profile.csv column -> (readable header with unit, format). Friction slope keeps 4 significant
 #: digits (0.001402, not 0.0014); levels keep mm.
@@ -40,13 +40,37 @@ def flag_text(value) -> str:
     return ", ".join(str(v) for v in value)
 
 
+def id_ranges(ids) -> str:
+    """Section ids as short runs: 3, 5-8, 12."""
+    ids = sorted({int(i) for i in ids})
+    runs: list[list[int]] = []
+    for i in ids:
+        if runs and i == runs[-1][1] + 1:
+            runs[-1][1] = i
+        else:
+            runs.append([i, i])
+    return ", ".join(str(a) if a == b else f"{a}-{b}" for a, b in runs)
+
+
+def by_word(pairs) -> str:
+    """'word: ids; word: ids' from (section id, [words]) pairs, words in first-seen order."""
+    out: dict[str, list[int]] = {}
+    for sid, words in pairs:
+        for w in words:
+            out.setdefault(w, []).append(int(sid))
+    return "; ".join(f"{w}: {id_ranges(ids)}" for w, ids in out.items())
+
+
 def event_summary(profile_df: pd.DataFrame, events) -> pd.DataFrame:
-    """One row per event: largest depth, mean velocity, largest Froude, flagged sections and why."""
+    """One row per event: largest depth, mean velocity, largest Froude, and the flagged sections by
+    flag word, those to review (hydraulic or input flags) apart from those with notes only."""
     rows = []
     for event in events:
         ev = profile_df[profile_df["event"] == event]
         depth = (ev["wse_m"] - ev["bed_m"]).to_numpy(dtype=float)
-        flagged = [f"{int(s)} ({flag_text(f)})" for s, f in zip(ev["section_id"], ev["flags"]) if flag_text(f)]
+        words = [(s, flag_words(f)) for s, f in zip(ev["section_id"], ev["flags"])]
+        review = by_word((s, [w for w in ws if needs_review(w)]) for s, ws in words)
+        notes = by_word((s, [w for w in ws if not needs_review(w)]) for s, ws in words)
         rows.append({
             "event": event,
             "upstream discharge (m³/s)": ev["discharge_m3s"].iloc[0] if len(ev) else np.nan,
@@ -54,7 +78,8 @@ def event_summary(profile_df: pd.DataFrame, events) -> pd.DataFrame:
             "mean velocity (m/s)": np.nanmean(ev["velocity_ms"]) if len(ev) else np.nan,
             "largest mean velocity (m/s)": np.nanmax(ev["velocity_ms"]) if len(ev) else np.nan,
             "largest Froude number": np.nanmax(ev["froude"]) if len(ev) else np.nan,
-            "flagged sections": "; ".join(flagged) if flagged else "none",
+            "flags to review (sections)": review or "none",
+            "notes (sections)": notes or "none",
         })
     return pd.DataFrame(rows)
 
