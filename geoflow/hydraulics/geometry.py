@@ -16,7 +16,7 @@ and 6, from memory).
 Where the water surface rises above an end of the section, a vertical wall is added at that
 end: it bounds the area and its wetted height counts in P (with the end segment's n and
 subdivision); ``not_contained`` reports it. Water in low ground that is not connected to the
-channel counts as flow area (no ineffective-area rule).
+channel counts as flow area unless it is marked as storage (below).
 
 Storage: ``build_table(..., storage=mask (m-1,))`` marks floodplain segments that hold water but
 carry no flow. They form subdivisions of their own whose numerator N = sum P n^1.5 is zero, so
