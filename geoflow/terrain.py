@@ -2,10 +2,19 @@
 
 Only this module (and outputs.py) opens raster files. Everything returned is plain numpy
 in metres of the DEM's vertical datum, with NaN where the DEM has no data.
+
+A :class:`Dem` holds no open handle (it pickles to Dask workers). ``with dem.kept_open():``
+keeps one dataset open for the calling thread of this process while the block runs, so the
+hundreds of window reads of a reach task share one handle and GDAL's block cache (opening the
+file costs about as much as reading a small window); outside such a block each read opens and
+closes the file.
 """
 from __future__ import annotations
 
+import contextlib
 import math
+import os
+import threading
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -17,6 +26,8 @@ from rasterio.crs import CRS
 from rasterio.windows import Window
 
 from .errors import InputDataError
+
+_LOCAL = threading.local()      # per thread: {path: [dataset, depth]} of DEMs kept open
 
 VERTICAL_UNITS = {"m": 1.0, "metre": 1.0, "meter": 1.0, "ft": 0.3048, "foot": 0.3048, "us_ft": 1200.0 / 3937.0}
 
@@ -59,15 +70,38 @@ class Dem:
     def window_transform(self, window: Window) -> Affine:
         return rasterio.windows.transform(window, self.transform)
 
+    @contextlib.contextmanager
+    def kept_open(self):
+        """Keep the DEM open for reads from this thread while the block runs (re-entrant).
+
+        The file is opened by the first read inside the block and closed when the outermost
+        block ends.
+        """
+        handles, key = _handles(), str(self.path)
+        entry = handles.setdefault(key, [None, 0])
+        entry[1] += 1
+        try:
+            yield self
+        finally:
+            entry[1] -= 1
+            if entry[1] == 0:
+                handles.pop(key, None)
+                if entry[0] is not None:
+                    entry[0].close()
+
     def read(self, window: Window | None = None) -> np.ndarray:
         """Elevations (m, float64) in ``window`` (whole DEM if None), NaN where nodata."""
+        entry = _handles().get(str(self.path))
         try:
-            with rasterio.open(self.path) as ds:
-                arr = ds.read(1, window=window, masked=True)
+            if entry is not None:
+                if entry[0] is None:
+                    entry[0] = rasterio.open(self.path)
+                arr = entry[0].read(1, window=window, masked=True)
+            else:
+                with rasterio.open(self.path) as ds:
+                    arr = ds.read(1, window=window, masked=True)
         except rasterio.errors.RasterioError as exc:
-            text = " ".join(str(exc).replace("See previous exception for details.", "").split())
-            raise InputDataError(f"{self.path}: cannot read the DEM's cells ({text}); the file may be truncated or "
-                                 "damaged - check it opens in a GIS, or export it again") from None
+            raise _read_error(self.path, exc) from None
         out = np.asarray(arr.filled(np.nan), dtype=np.float64)
         if self.z_factor != 1.0:
             out *= self.z_factor
@@ -134,6 +168,25 @@ class Dem:
         flat = out.ravel()
         flat[np.flatnonzero(ok)] = val
         return flat.reshape(x.shape)
+
+
+def _handles() -> dict:
+    """This thread's DEMs kept open; a forked child starts with none of its parent's handles."""
+    if getattr(_LOCAL, "pid", None) != os.getpid():
+        _LOCAL.handles, _LOCAL.pid = {}, os.getpid()
+    return _LOCAL.handles
+
+
+def _read_error(path: Path, exc: Exception) -> InputDataError:
+    text = " ".join(str(exc).replace("See previous exception for details.", "").split())
+    return InputDataError(f"{path}: cannot read the DEM's cells ({text}); the file may be truncated or "
+                          "damaged - check it opens in a GIS, or export it again")
+
+
+def kept_open(dem):
+    """``dem.kept_open()``, or a no-op for stand-ins that read without it (tests' duck-typed DEMs)."""
+    keep = getattr(dem, "kept_open", None)
+    return keep() if keep is not None else contextlib.nullcontext(dem)
 
 
 def apply_affine(t: Affine, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

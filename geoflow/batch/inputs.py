@@ -48,7 +48,8 @@ def open_inputs(cfg: Config) -> Inputs:
                                        dem.cell_size))
     warnings: dict = {}
     if cfg.reaches.check_direction:
-        reaches = [_oriented(rid, line, dem, warnings) for rid, line in reaches]
+        with dem.kept_open():
+            reaches = [_oriented(rid, line, dem, warnings) for rid, line in reaches]
     user = {}
     if cfg.sections.lines is not None:
         user = layers.read_section_lines(cfg.sections.lines, dem.crs, layer=cfg.sections.lines_layer,

@@ -84,7 +84,8 @@ def compute_reach(spec: TaskSpec) -> dict:
         cfg = _config(spec.config_path, spec.config_sha256, spec.identity)
         out = cfg.run.output_dir
         inputs = _inputs(spec.config_path, spec.config_sha256, spec.identity)
-        _compute(cfg, inputs, spec, info, t0)
+        with inputs.dem.kept_open():          # one handle (and GDAL block cache) for the whole task
+            _compute(cfg, inputs, spec, info, t0)
     except GeoflowError as exc:
         info["error"] = str(exc)
     except Exception as exc:  # disk full in a library's own words, or a bug: keep the batch going

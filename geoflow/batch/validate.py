@@ -97,22 +97,23 @@ def validate(config: str | Path | Config, others: tuple = ()) -> CheckResult:
     """
     cfg = as_config(config)
     inputs = open_inputs(cfg)
-    problems = reach_problems(cfg, inputs)
-    geoms = {}
-    for rid, line in inputs.reaches:
-        if rid in problems:
-            continue
-        try:
-            geom = reach.build_geometry(cfg, inputs, rid, line)
-        except GeoflowError as exc:
-            problems[rid] = str(exc)
-            continue
-        level = boundary_level_problems(cfg, rid, _end_ground(geom), _end_discharges(cfg, rid, geom))
-        built = _structure_problems(cfg, geom)
-        if level or built:
-            problems[rid] = f"{cfg.path}: " + "; ".join(level + built)
-        else:
-            geoms[rid] = geom
+    with inputs.dem.kept_open():
+        problems = reach_problems(cfg, inputs)
+        geoms = {}
+        for rid, line in inputs.reaches:
+            if rid in problems:
+                continue
+            try:
+                geom = reach.build_geometry(cfg, inputs, rid, line)
+            except GeoflowError as exc:
+                problems[rid] = str(exc)
+                continue
+            level = boundary_level_problems(cfg, rid, _end_ground(geom), _end_discharges(cfg, rid, geom))
+            built = _structure_problems(cfg, geom)
+            if level or built:
+                problems[rid] = f"{cfg.path}: " + "; ".join(level + built)
+            else:
+                geoms[rid] = geom
     check_within_sections(cfg, inputs.marks, geoms)
     check_inputs_not_outputs(cfg, tuple(others))
     order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)

@@ -65,6 +65,7 @@ from rasterio.windows import Window
 
 from .. import outputs
 from ..errors import ConfigError, GeometryError, RoughnessError
+from ..terrain import kept_open
 from .blocks import Grid, Surface
 from .join import run_blocks
 
@@ -187,7 +188,8 @@ def map_reach(dem, geom, wse_at_section, cell_size: float | None = None, pad: in
     ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity, clip)
     kinds = ("wse", "depth") + (("velocity",) if velocity is not None else ())
     arrays = {k: np.full(grid.shape, np.nan, dtype=np.float32) for k in kinds}
-    res = run_blocks(ctx, grid, _Sink({k: _ArrayWindows(a) for k, a in arrays.items()}))
+    with kept_open(dem):
+        res = run_blocks(ctx, grid, _Sink({k: _ArrayWindows(a) for k, a in arrays.items()}))
     return ReachMap(transform=grid.transform, crs=dem.crs, wse=arrays["wse"], depth=arrays["depth"],
                     extent=res.extent, wet_area_m2=res.wet_area_m2, max_depth=res.max_depth,
                     velocity=arrays.get("velocity"))
@@ -244,6 +246,7 @@ def write_reach_maps(dem, geom, wse_at_section, paths: dict, cell_size: float | 
     rows, cols = grid.shape
     tile = 512 if min(rows, cols) >= 4096 else 256
     with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB * 1024 * 1024), contextlib.ExitStack() as stack:
+        stack.enter_context(kept_open(dem))
         writers = {k: stack.enter_context(outputs.block_raster_writer(p, cols, rows, grid.transform, dem.crs,
                                                                       blocksize=tile, meta=meta.get(k)))
                    for k, p in paths.items()}

@@ -3,7 +3,9 @@
 Each station segment (between consecutive ground samples) takes the class of the land-cover
 polygon containing its mid-point (shapely 2 ``STRtree.query`` with predicate
 ``"intersects"``, so a mid-point on a shared edge still finds a polygon; where polygons
-overlap the first feature in layer order wins and a warning says so). Its n comes from the
+overlap the first feature in layer order wins and a warning says so). Sections are first
+split where they cross a polygon edge, so every segment lies in one polygon. Both steps are
+bulk queries over all segments of a reach, linear in its length. Its n comes from the
 user's table (class name -> n), e.g. chosen from Chow (1959) *Open-Channel Hydraulics*,
 Table 5-6 (see :mod:`geoflow.roughness.tables`).
 
@@ -86,36 +88,69 @@ def split_at_cover_edges(geom: ReachGeometry, cover) -> ReachGeometry:
     The ground there is interpolated linearly between its neighbours, so the ground profile is
     unchanged; only the segments are split, so every segment lies in one polygon and n changes
     exactly at the mapped boundary rather than at the nearest sample.
+
+    Cost is linear in the reach: the boundaries of the polygons near the reach are cut into
+    their straight edges once (:func:`cover_edges`), and one bulk ``STRtree`` query pairs every
+    section line with the few edges it crosses.
     """
     lines = np.array([s.line for s in geom.sections], dtype=object)
     if lines.size == 0:
         return geom
-    li, pi = cover.tree.query(lines, predicate="intersects")
+    edges = cover_edges(cover, shapely.total_bounds(lines))
+    if edges.size == 0:
+        return geom
+    li, ei = shapely.STRtree(edges).query(lines, predicate="intersects")
     if li.size == 0:
         return geom
-    edges = shapely.intersection(lines[li], shapely.boundary(np.asarray(cover.geometries)[pi]))
-    coords, which = shapely.get_coordinates(edges, return_index=True)
+    coords, which = shapely.get_coordinates(shapely.intersection(lines[li], edges[ei]), return_index=True)
     if coords.size == 0:
         return geom
     owner = li[which]
     st = shapely.line_locate_point(lines[owner], shapely.points(coords))
-    new = []
-    for k, sec in enumerate(geom.sections):
-        add = st[owner == k]
-        if add.size == 0:
-            new.append(sec)
-            continue
-        tol = 1e-3 * float(np.min(np.diff(sec.station))) if sec.station.size > 1 else 1e-6
-        add = add[(add > sec.station[0] + tol) & (add < sec.station[-1] - tol)]
-        add = add[np.min(np.abs(add[:, None] - sec.station[None, :]), axis=1) > tol] if add.size else add
-        if add.size == 0:
-            new.append(sec)
-            continue
-        add = np.sort(add)
-        add = add[np.concatenate(([True], np.diff(add) > tol))]      # shared edges give one point twice
-        station = np.union1d(sec.station, add)
-        new.append(dataclasses.replace(sec, station=station, elevation=np.interp(station, sec.station, sec.elevation)))
+    order = np.argsort(owner, kind="stable")
+    owner, st = owner[order], st[order]
+    cuts = np.searchsorted(owner, np.arange(len(geom.sections) + 1))
+    new = [_split(sec, st[cuts[k]:cuts[k + 1]]) for k, sec in enumerate(geom.sections)]
     return dataclasses.replace(geom, sections=tuple(new))
+
+
+def _split(sec: Section, add: np.ndarray) -> Section:
+    """``sec`` with stations added at ``add`` (m; those within a small tolerance of a station dropped)."""
+    if add.size == 0:
+        return sec
+    tol = 1e-3 * float(np.min(np.diff(sec.station))) if sec.station.size > 1 else 1e-6
+    add = add[(add > sec.station[0] + tol) & (add < sec.station[-1] - tol)]
+    pos = np.searchsorted(sec.station, add)            # stations are sorted: nearest is pos - 1 or pos
+    add = np.sort(add[np.minimum(add - sec.station[pos - 1], sec.station[pos] - add) > tol])
+    if add.size == 0:
+        return sec
+    add = add[np.concatenate(([True], np.diff(add) > tol))]      # shared edges give one point twice
+    station = np.union1d(sec.station, add)
+    return dataclasses.replace(sec, station=station, elevation=np.interp(station, sec.station, sec.elevation))
+
+
+def cover_edges(cover, bounds, pad: float = 1.0) -> np.ndarray:
+    """Straight edges (2-point LineStrings) of the land-cover polygon boundaries within ``bounds``.
+
+    Only polygons whose box meets ``bounds`` (padded by ``pad`` m) are used; their boundaries
+    (outer and inner rings) are clipped to the padded box (``shapely.clip_by_rect``, which adds no
+    edge of its own along the box) and cut into segments, so the work grows with the reach, not
+    with the layer. Polygons are never clipped: a clipped polygon would gain edges along the box.
+    """
+    left, bottom, right, top = (float(b) for b in bounds)
+    left, bottom, right, top = left - pad, bottom - pad, right + pad, top + pad
+    near = cover.tree.query(shapely.box(left, bottom, right, top))
+    if near.size == 0:
+        return np.empty(0, dtype=object)
+    rings = shapely.clip_by_rect(shapely.boundary(np.asarray(cover.geometries)[np.sort(near)]),
+                                 left, bottom, right, top)
+    parts = shapely.get_parts(shapely.get_parts(rings))
+    parts = parts[shapely.get_type_id(parts) == shapely.GeometryType.LINESTRING]
+    xy, part = shapely.get_coordinates(parts, return_index=True)
+    same = part[1:] == part[:-1]
+    if not same.any():
+        return np.empty(0, dtype=object)
+    return shapely.linestrings(np.stack((xy[:-1][same], xy[1:][same]), axis=1))
 
 
 def _n_value(name, value) -> float:
@@ -152,14 +187,25 @@ def centre_stations(geom: ReachGeometry) -> np.ndarray:
 
 
 def _classes_at(cover, xy: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
-    """Class name at each point (first polygon in layer order), a has-cover mask, overlap count."""
-    hit_pt, hit_poly = cover.tree.query(shapely.points(xy), predicate="intersects")
+    """Class name at each point (first polygon in layer order), a has-cover mask, overlap count.
+
+    One bulk query of the polygons near the points against an STRtree of the points: shapely
+    prepares each query polygon once, so a point-in-polygon test costs O(log vertices) and the
+    whole overlay grows linearly with the number of points (querying points against a tree of
+    polygons would test each point against the full vertex list of its polygon).
+    """
+    classes = np.full(len(xy), GAP_CLASS, dtype=object)
+    has = np.zeros(len(xy), dtype=bool)
+    if len(xy) == 0:
+        return classes.astype(str), has, 0
+    points = shapely.points(xy)
+    near = cover.tree.query(shapely.box(*xy.min(axis=0), *xy.max(axis=0)))
+    hit_poly, hit_pt = shapely.STRtree(points).query(np.asarray(cover.geometries)[near], predicate="intersects")
+    hit_poly = near[hit_poly]
     order = np.lexsort((hit_poly, hit_pt))
     hit_pt, hit_poly = hit_pt[order], hit_poly[order]
     first_pt, first_idx, counts = np.unique(hit_pt, return_index=True, return_counts=True)
-    classes = np.full(len(xy), GAP_CLASS, dtype=object)
     classes[first_pt] = np.asarray(cover.classes)[hit_poly[first_idx]]
-    has = np.zeros(len(xy), dtype=bool)
     has[first_pt] = True
     return classes.astype(str), has, int(np.sum(counts > 1))
 
