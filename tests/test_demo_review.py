@@ -92,16 +92,19 @@ def test_run_facts_on_the_reach_pages(demo):
 
 def test_rasters_carry_units_and_the_caution(demo):
     out, _, man = demo
-    tifs = sorted(out.glob("rasters/*/*.tif")) + sorted(out.glob("mosaic/*.tif"))
-    assert len(tifs) >= 12
-    for tif in tifs:
-        kind = tif.stem.rsplit("_", 1)[-1]
+    tifs = sorted(out.glob("rasters/*/*.tif")) + sorted(out.glob("mosaic/*/*.tif"))
+    views = sorted(out.glob("mosaic/*.vrt"))
+    assert len(tifs) >= 12 and len(views) == 4 and len(tifs) > 12        # the confluence gives patches
+    for tif in tifs + views:
+        patch = tif.parent.parent.name == "mosaic"                 # mosaic/<event>_max_<kind>/<patch>.tif
+        kind = (tif.parent.name if patch else tif.stem).rsplit("_", 1)[-1]
         with rasterio.open(tif) as ds:
             tags = ds.tags()
             assert tags["caution"] == CAUTION, tif
             assert tags["units"] == RASTER_MEANING[kind][1] and ds.units == (RASTER_MEANING[kind][1],), tif
             assert RASTER_MEANING[kind][0] in ds.descriptions[0], tif
-            assert ds.tags(ns="IMAGE_STRUCTURE").get("LAYOUT") == "COG"
+            if tif.suffix == ".tif":
+                assert ds.tags(ns="IMAGE_STRUCTURE").get("LAYOUT") == "COG"
 
 
 def test_geopackages_describe_their_layers_and_outlines_are_dissolved(demo):

@@ -11,6 +11,7 @@ from rasterio.merge import merge
 
 from geoflow.errors import InputDataError
 from geoflow.mapping import mosaic_max
+from geoflow.mapping.mosaic import overlap_patches, write_vrt
 from geoflow.outputs import write_raster
 
 CRS_UTM = CRS.from_epsg(32633)
@@ -75,3 +76,44 @@ def test_off_grid_inputs_are_refused(two, tmp_path):
     with pytest.raises(InputDataError, match="k.tif.*cell size"):
         mosaic_max([pa, coarse], tmp_path / "x.tif")
     assert not (tmp_path / "x.tif").exists()
+
+
+def test_overlap_patches_of_a_chain_and_a_lone_raster():
+    # Hand geometry: A [0, 100] x [0, 50], B [90, 200] x [10, 60], C [190, 300] x [0, 50] form a chain
+    # whose overlaps A-B = [90, 100] x [10, 50] and B-C = [190, 200] x [10, 50] are apart; D stands
+    # alone and E only touches C along the edge x = 300 (no area in common).
+    bounds = [(0, 0, 100, 50), (90, 10, 200, 60), (190, 0, 300, 50), (1000, 0, 1100, 50), (300, 0, 350, 50)]
+    assert overlap_patches(bounds) == [((90.0, 10.0, 100.0, 50.0), [0, 1]), ((190.0, 10.0, 200.0, 50.0), [1, 2])]
+    # A fourth raster over both overlaps joins them into one patch, their bounding box.
+    assert overlap_patches(bounds + [(95, 20, 195, 30)]) == [((90.0, 10.0, 200.0, 50.0), [0, 1, 2, 5])]
+    assert overlap_patches(bounds[3:]) == [] and overlap_patches(bounds[:1]) == []
+
+
+def test_patches_under_a_virtual_raster_give_the_maximum_everywhere(tmp_path):
+    # Reference: rasterio.merge.merge(method="max") over the three rasters; the VRT (reach rasters
+    # first, patch maxima on top) read back through GDAL must equal it cell for cell.
+    rng = np.random.default_rng(3)
+    specs = [((60, 80), 0, 0), ((50, 70), 30, 60), ((40, 90), 70, 110)]
+    paths = []
+    for k, (shape, r, c) in enumerate(specs):
+        arr = rng.uniform(10, 20, shape)
+        arr[rng.uniform(size=shape) < 0.2] = np.nan
+        paths.append(raster(tmp_path / f"r{k}.tif", arr, r, c))
+    bounds = []
+    for p in paths:
+        with rasterio.open(p) as ds:
+            bounds.append(tuple(ds.bounds))
+    patches = [mosaic_max([paths[k] for k in members], tmp_path / "m" / f"p{n}.tif", block=32, bounds=box)
+               for n, (box, members) in enumerate(overlap_patches(bounds))]
+    assert len(patches) == 2
+    for (box, _), p in zip(overlap_patches(bounds), patches):
+        with rasterio.open(p) as ds:
+            assert tuple(ds.bounds) == box                  # the patch covers only the overlap
+    vrt = write_vrt(paths + patches, tmp_path / "m" / "max.vrt")
+    sources = [rasterio.open(p) for p in paths]
+    ref, ref_t = merge(sources, method="max", nodata=-9999.0)
+    for ds in sources:
+        ds.close()
+    with rasterio.open(vrt) as ds:
+        assert ds.transform == ref_t and ds.crs == CRS_UTM and ds.nodata == -9999.0
+        np.testing.assert_array_equal(ds.read(1), ref[0])

@@ -13,12 +13,11 @@ import numpy as np
 import pandas as pd
 import rasterio
 import shapely
-from shapely.geometry import box
 
 from .. import __version__, outputs
 from ..config import Config
 from ..constants import CAUTION
-from ..mapping import mosaic_max
+from ..mapping.mosaic import mosaic_max, overlap_patches, write_vrt
 from ..naming import safe_name
 from .layout import MANIFEST_NAME, relative_name, unrecorded_files
 from .manifest import Manifest, calibration_entry, part_paths, unit_key
@@ -111,25 +110,35 @@ def cross_reach_crossings(sections: gpd.GeoDataFrame) -> list[str]:
 
 
 def _mosaics(cfg: Config, done: dict[str, list[str]]) -> dict:
-    """mosaic/<event>_max_<kind>.tif: the largest value where reach rasters overlap (confluences).
+    """Where reach rasters overlap (confluences, shared reach ends), the largest value; one view of all.
 
-    Only the reaches whose raster windows overlap another reach's take part; with no overlap
-    there is nothing to merge and no mosaic is written.
+    mosaic/<event>_max_<kind>/<reach>+<reach>....tif: the cell-wise maximum over one patch where
+    rasters overlap (:func:`geoflow.mapping.mosaic.overlap_patches`; named after the first two
+    reaches in layer order that cover it). mosaic/<event>_max_<kind>.vrt: a virtual raster of
+    every reach raster with the patches on top, i.e. the largest value everywhere. Nothing is
+    written for an event and kind with fewer than two reach rasters.
     """
     written = {}
     for ev in cfg.events:
         for kind in ("wse", "depth"):
             if kind not in cfg.mapping.outputs:
                 continue
-            tifs = [cfg.run.output_dir / "rasters" / safe_name(rid) / f"{safe_name(ev.name)}_{kind}.tif"
-                    for rid, events in done.items() if ev.name in events]
-            tifs = _overlapping([t for t in tifs if t.is_file()])
-            if len(tifs) >= 2:
-                path = cfg.run.output_dir / "mosaic" / f"{safe_name(ev.name)}_max_{kind}.tif"
-                meta = outputs.raster_metadata(kind, CAUTION, event=ev.name, run=cfg.run.name,
-                                               geoflow_version=__version__, config_sha256=cfg.sha256,
-                                               combined="largest value of the overlapping reach rasters")
-                written[f"mosaic_{ev.name}_{kind}"] = mosaic_max(tifs, path, meta=meta)
+            found = [(rid, cfg.run.output_dir / "rasters" / safe_name(rid) / f"{safe_name(ev.name)}_{kind}.tif")
+                     for rid, events in done.items() if ev.name in events]
+            found = [(rid, t) for rid, t in found if t.is_file()]
+            if len(found) < 2:
+                continue
+            base = cfg.run.output_dir / "mosaic" / f"{safe_name(ev.name)}_max_{kind}"
+            meta = outputs.raster_metadata(kind, CAUTION, event=ev.name, run=cfg.run.name,
+                                           geoflow_version=__version__, config_sha256=cfg.sha256,
+                                           combined="largest value of the overlapping reach rasters")
+            patches = []
+            for box_, members in overlap_patches([_bounds(t) for _, t in found]):
+                path = _patch_name(base, [found[k][0] for k in members], patches)
+                patches.append(mosaic_max([found[k][1] for k in members], path, meta=meta, bounds=box_))
+                written[f"mosaic_{ev.name}_{kind}_{path.stem}"] = path
+            written[f"mosaic_{ev.name}_{kind}"] = write_vrt([t for _, t in found] + patches, base.with_suffix(".vrt"),
+                                                            meta=meta)
     return written
 
 
@@ -179,18 +188,19 @@ def _structures(cfg: Config, done: dict[str, list[str]]) -> pd.DataFrame:
     return pd.concat(frames, ignore_index=True) if frames else outputs.empty_structures()
 
 
-def _overlapping(tifs: list) -> list:
-    """The rasters whose extent overlaps (with positive area) at least one other's."""
-    if len(tifs) < 2:
-        return []
-    boxes = []
-    for t in tifs:
-        with rasterio.open(t) as ds:
-            boxes.append(box(*ds.bounds))
-    boxes = np.array(boxes)
-    area = shapely.area(shapely.intersection(boxes[:, None], boxes[None, :]))
-    np.fill_diagonal(area, 0.0)
-    return [t for t, hit in zip(tifs, (area > 0).any(axis=1)) if hit]
+def _patch_name(base, reaches: list[str], taken: list):
+    """<base>/<first>+<second>[+N_more].tif, with _2, _3 ... if that name is taken already."""
+    stem = "+".join(safe_name(r) for r in reaches[:2]) + (f"+{len(reaches) - 2}_more" if len(reaches) > 2 else "")
+    path, k = base / f"{stem}.tif", 1
+    while path in taken:
+        k += 1
+        path = base / f"{stem}_{k}.tif"
+    return path
+
+
+def _bounds(tif) -> tuple:
+    with rasterio.open(tif) as ds:
+        return tuple(ds.bounds)
 
 
 def _sections(cfg: Config, order: list[str], profile: pd.DataFrame, crs: str) -> gpd.GeoDataFrame:

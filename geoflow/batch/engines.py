@@ -1,7 +1,9 @@
 """Where reach tasks run: in this process, in a local process pool, or on a Dask cluster.
 
 Each engine has the same small interface: ``submit(spec) -> handle``, ``wait(handles) -> handle``
-(the next one done) and ``result(handle) -> info dict``; ``close()`` frees it. A worker that dies
+(the next one done, in constant time however many are in flight: handles report themselves done
+to a queue, so a batch of N reaches costs O(N), not O(N^2), to schedule) and ``result(handle) ->
+info dict``; ``close()`` frees it. A worker that dies
 (killed, out of memory) never raises into the batch: its reach comes back failed with a message
 that says to run again with ``--resume``.
 """
@@ -9,6 +11,7 @@ from __future__ import annotations
 
 import concurrent.futures as cf
 import multiprocessing
+import queue
 import threading
 
 from ..errors import GeoflowError
@@ -26,7 +29,7 @@ class InProcess:
         return spec
 
     def wait(self, handles):
-        return handles[0]
+        return next(iter(handles))
 
     def result(self, spec: TaskSpec) -> dict:
         return compute_reach(spec)
@@ -41,21 +44,23 @@ class Pool:
     def __init__(self, workers: int):
         self.workers = workers
         self.pool = self._new()
+        self.done: queue.SimpleQueue = queue.SimpleQueue()
 
     def _new(self):
         return cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=pool_context())
 
     def submit(self, spec: TaskSpec):
         try:
-            return self.pool.submit(compute_reach, spec)
+            fut = self.pool.submit(compute_reach, spec)
         except cf.process.BrokenProcessPool:
             self.pool.shutdown(wait=False, cancel_futures=True)
             self.pool = self._new()
-            return self.pool.submit(compute_reach, spec)
+            fut = self.pool.submit(compute_reach, spec)
+        fut.add_done_callback(self.done.put)
+        return fut
 
     def wait(self, handles):
-        done, _ = cf.wait(handles, return_when=cf.FIRST_COMPLETED)
-        return next(iter(done))
+        return self.done.get()
 
     def result(self, fut) -> dict:
         try:
@@ -79,14 +84,16 @@ class DaskCluster:
             raise GeoflowError(f"--scheduler {address}: cannot reach the Dask scheduler within "
                                f"{SCHEDULER_TIMEOUT_S} s ({text}); check the address and that the scheduler "
                                "is running") from None
+        from distributed import as_completed
+        self.done = as_completed()
 
     def submit(self, spec: TaskSpec):
-        return self.client.submit(compute_reach, spec, pure=False)
+        fut = self.client.submit(compute_reach, spec, pure=False)
+        self.done.add(fut)
+        return fut
 
     def wait(self, handles):
-        from distributed import wait
-        done = wait(handles, return_when="FIRST_COMPLETED").done
-        return next(iter(done))
+        return next(self.done)
 
     def result(self, fut) -> dict:
         try:

@@ -21,10 +21,11 @@ from pathlib import Path
 from ..errors import ConfigError
 
 MANIFEST_NAME = "manifest.json"
+UPDATES_NAME = "manifest-updates.jsonl"    # reach records appended between whole manifest rewrites
 LOG_NAME = "run.log"
 LOCK_NAME = ".geoflow.lock"
-TOP_FILES = (MANIFEST_NAME, LOG_NAME, LOCK_NAME, "profile.csv", "sections.gpkg", "inundation.gpkg", "calibration.csv",
-             "rating_curves.csv", "structures.csv")
+TOP_FILES = (MANIFEST_NAME, UPDATES_NAME, LOG_NAME, LOCK_NAME, "profile.csv", "sections.gpkg", "inundation.gpkg",
+             "calibration.csv", "rating_curves.csv", "structures.csv")
 MANAGED_DIRS = ("rasters", "mosaic", "report", "parts", "uncertainty")
 PARTS_DIR = "parts"
 

@@ -1,7 +1,12 @@
 """The run manifest: what was computed, from which inputs, which files it wrote, what --resume may reuse.
 
-The manifest is rewritten atomically after every finished reach, so a run killed at any moment
-leaves a manifest that lists exactly the reach x event units whose outputs are complete.
+After every finished reach the manifest is brought up to date, so a run killed at any moment
+leaves a manifest that lists exactly the reach x event units whose outputs are complete. It is
+rewritten whole (atomically) when that is cheap against the time since the last rewrite
+(:data:`REWRITE_SHARE`); otherwise the reach's record is appended as one line to
+``manifest-updates.jsonl`` beside it, and :func:`load_previous` replays those lines (only the
+ones carrying the manifest's ``run_id``; a line cut short by a kill is ignored). So a batch of N
+reaches costs O(N) manifest writing, not O(N^2), and the next whole rewrite empties the file.
 
 Input identity: the SHA-256 of the config text and of every input file the config names
 (:meth:`geoflow.config.Config.input_files`, with the side files GDAL keeps beside them), and the
@@ -16,14 +21,19 @@ import hashlib
 import json
 import os
 import time
+import uuid
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from .. import __version__, outputs
 from ..config import Config
 from ..constants import CAUTION
+from ..errors import write_error
 from ..roughness import case_factors, classes_without_range
-from .layout import MANIFEST_NAME, PARTS_DIR, relative_name, side_files
+from .layout import MANIFEST_NAME, PARTS_DIR, UPDATES_NAME, relative_name, side_files
+
+#: rewrite the whole manifest only when the last rewrite took at most this share of the time since
+REWRITE_SHARE = 0.05
 
 
 def file_sha256(path: Path) -> str:
@@ -83,6 +93,8 @@ class Manifest:
 
     path: Path
     data: dict = field(default_factory=dict)
+    _rewrite_s: float = 0.0          # how long the last whole rewrite took
+    _rewritten_at: float = 0.0       # when it ended (perf_counter)
 
     @classmethod
     def start(cls, cfg: Config, hashes: dict, ident: str, previous: dict | None, reuse: set[str]) -> "Manifest":
@@ -95,6 +107,7 @@ class Manifest:
             "inputs": hashes,
             "identity": ident,
             "events": [e.name for e in cfg.events],
+            "run_id": uuid.uuid4().hex,
             "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
             "finished": None,
             "reaches": {},
@@ -120,7 +133,38 @@ class Manifest:
         return names
 
     def save(self) -> None:
+        """Rewrite manifest.json whole (atomically), then empty the updates file it now includes."""
+        t0 = time.perf_counter()
         outputs.write_manifest(self.path, self.data)
+        updates = self.path.with_name(UPDATES_NAME)
+        if updates.exists():
+            try:
+                updates.unlink()
+            except OSError as exc:
+                raise write_error(updates, exc) from None
+        self._rewritten_at = time.perf_counter()
+        self._rewrite_s = self._rewritten_at - t0
+
+    def checkpoint(self, reach_id: str) -> None:
+        """Make the manifest on disk include the record of ``reach_id`` (after :meth:`record_reach`).
+
+        A whole rewrite when it is cheap against the time since the last one, else one appended line.
+        """
+        if self._rewrite_s <= REWRITE_SHARE * (time.perf_counter() - self._rewritten_at):
+            self.save()
+            return
+        events = self.data.get("events") or []
+        units = {k: self.data["units"][k] for k in (unit_key(reach_id, e) for e in events) if k in self.data["units"]}
+        line = json.dumps(outputs.plain({"run_id": self.data["run_id"], "reach": reach_id,
+                                         "entry": self.data["reaches"][reach_id], "units": units}),
+                          allow_nan=False)
+        updates = self.path.with_name(UPDATES_NAME)
+        try:
+            with open(updates, "a", encoding="utf-8") as f:
+                f.write(line + "\n")
+        except OSError as exc:
+            raise write_error(updates, exc) from None
+
 
 
 def roughness_cases_entry(cfg: Config) -> dict:
@@ -156,12 +200,38 @@ def calibration_entry(cfg: Config, reaches: dict) -> dict:
 
 
 def load_previous(out_dir: Path) -> dict | None:
+    """The manifest a previous run left, with the reach records it appended since its last rewrite."""
     path = Path(out_dir) / MANIFEST_NAME
     try:
         data = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, ValueError):
         return None
-    return data if isinstance(data, dict) else None
+    if not isinstance(data, dict):
+        return None
+    for rec in _updates(path.with_name(UPDATES_NAME), data.get("run_id")):
+        data.setdefault("reaches", {})[rec["reach"]] = rec["entry"]
+        data.setdefault("units", {}).update(rec["units"])
+    return data
+
+
+def _updates(path: Path, run_id) -> list[dict]:
+    """Complete, well-formed lines of the updates file written by run ``run_id`` (others ignored)."""
+    if run_id is None:
+        return []
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError:
+        return []
+    out = []
+    for line in text.split("\n"):
+        try:
+            rec = json.loads(line)
+        except ValueError:
+            continue                  # the last line of a run killed while appending
+        if (isinstance(rec, dict) and rec.get("run_id") == run_id and isinstance(rec.get("reach"), str)
+                and isinstance(rec.get("entry"), dict) and isinstance(rec.get("units"), dict)):
+            out.append(rec)
+    return out
 
 
 def previous_files(previous: dict | None) -> set[str]:

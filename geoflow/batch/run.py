@@ -212,19 +212,19 @@ def _compute(plans: list[_Plan], runner, progress: bool) -> None:
         _log_cases(p)
         deps = junction_order(p.cfg, list(p.todo))
         waiting.extend((p, rid, deps.get(rid) if deps.get(rid) in p.todo else None) for rid in p.todo)
+    after: dict = {}                  # (plan, reach) -> the reaches that wait for it
     handles: dict = {}
-    finished: set = set()
-    while waiting or handles:
-        ready = [w for w in waiting if w[2] is None or (id(w[0]), w[2]) in finished]
-        waiting = [w for w in waiting if w not in ready]
-        for p, rid, _ in ready:
+    for p, rid, dep in waiting:
+        if dep is None:
             handles[runner.submit(_spec(p, rid))] = (p, rid)
-        if not handles:
-            break
-        h = runner.wait(list(handles))
+        else:
+            after.setdefault((id(p), dep), []).append((p, rid))
+    while handles:
+        h = runner.wait(handles)
         p, rid = handles.pop(h)
         _record(p, rid, runner.result(h))
-        finished.add((id(p), rid))
+        for q, dependent in after.pop((id(p), rid), []):
+            handles[runner.submit(_spec(q, dependent))] = (q, dependent)
         bar.step(f"{p.cfg.run.name}/{rid}: {p.manifest.data['reaches'][rid]['status']}", len(p.todo[rid]))
 
 
@@ -256,7 +256,7 @@ def _record(p: _Plan, rid: str, info: dict) -> None:
         info.setdefault("events", {}).setdefault(ev, {"status": "failed", "error": info.get("error")})
     p.manifest.record_reach(rid, info)
     try:
-        p.manifest.save()
+        p.manifest.checkpoint(rid)
     except OutputError as exc:
         log.error("run %s: %s", p.cfg.run.name, exc)
         raise

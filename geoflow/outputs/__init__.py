@@ -7,6 +7,7 @@ from .files import (
                     atomic_path,
                     block_raster_writer,
                     cog_options,
+                    plain,
                     read_raster,
                     tiled_gtiff_options,
                     write_calibration_csv,
@@ -39,7 +40,7 @@ from .tables import (
 
 __all__ = ["BlockWriter", "CALIBRATION_COLUMNS", "RATING_COLUMNS", "EXTENT_COLUMNS", "INFO_ONLY_FLAGS", "LAYER_MEANING",
            "PROFILE_COLUMNS", "PROFILE_MEANING", "RASTER_MEANING", "SECTION_COLUMNS", "atomic_path",
-           "block_raster_writer", "cog_options", "empty_profile", "profile_rows", "raster_metadata", "read_raster",
-           "section_rows", "tiled_gtiff_options", "write_calibration_csv", "write_rating_csv", "write_extent_gpkg",
-           "write_manifest", "write_profile_csv", "write_raster",
+           "block_raster_writer", "cog_options", "empty_profile", "plain", "profile_rows", "raster_metadata",
+           "read_raster", "section_rows", "tiled_gtiff_options", "write_calibration_csv", "write_rating_csv",
+           "write_extent_gpkg", "write_manifest", "write_profile_csv", "write_raster",
            "write_sections_gpkg", "STRUCTURE_COLUMNS", "empty_structures", "structure_rows", "write_structures_csv"]

@@ -129,9 +129,14 @@ def cog_options(width: int, height: int, blocksize: int = 256) -> dict:
 
 
 def tiled_gtiff_options(blocksize: int = 256) -> dict:
-    """Creation options of the temporary tiled GeoTIFF that block-wise writers fill first."""
-    return dict(driver="GTiff", tiled=True, blockxsize=blocksize, blockysize=blocksize, compress="DEFLATE",
-                predictor=3, BIGTIFF="IF_SAFER")
+    """Creation options of the temporary tiled GeoTIFF that block-wise writers fill first.
+
+    Uncompressed and sparse (tiles never written take no space and read as no data): the COG
+    copy compresses every tile once anyway, so compressing the temporary too only doubled the
+    DEFLATE work. The published COG is byte for byte the same either way (tests/test_outputs.py).
+    """
+    return dict(driver="GTiff", tiled=True, blockxsize=blocksize, blockysize=blocksize, compress=None,
+                SPARSE_OK=True, BIGTIFF="IF_SAFER")
 
 
 class BlockWriter:
@@ -158,7 +163,7 @@ def block_raster_writer(path, width: int, height: int, transform, crs, nodata: f
 
     Yields a :class:`BlockWriter` ``w``: ``w(array, window)`` writes ``array`` (float, NaN =
     no data) to ``window`` (a rasterio Window of this raster) of a temporary tiled GeoTIFF
-    (DEFLATE, predictor 3, ``blocksize`` tiles, :func:`tiled_gtiff_options`) beside
+    (uncompressed, sparse, ``blocksize`` tiles, :func:`tiled_gtiff_options`) beside
     ``path``; a window may be written again (the later data wins) and ``w.read(window)``
     reads back. Windows never written read as no data. On normal exit the temporary file is
     streamed into a Cloud-Optimised GeoTIFF with overviews (``rasterio.shutil.copy``, driver
@@ -291,16 +296,16 @@ def write_extent_gpkg(path, extent_gdf) -> Path:
     return _write_gpkg(path, extent_gdf, "extent", EXTENT_COLUMNS, promote_to_multi=True)
 
 
-def _plain(obj):
+def plain(obj):
     """JSON-safe copy: numpy scalars/arrays to Python, paths to str, NaN/inf to None."""
     if isinstance(obj, dict):
-        return {str(k): _plain(v) for k, v in obj.items()}
+        return {str(k): plain(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple, set)):
-        return [_plain(v) for v in obj]
+        return [plain(v) for v in obj]
     if isinstance(obj, np.ndarray):
-        return _plain(obj.tolist())
+        return plain(obj.tolist())
     if isinstance(obj, np.generic):
-        return _plain(obj.item())
+        return plain(obj.item())
     if isinstance(obj, float) and not math.isfinite(obj):
         return None
     if isinstance(obj, (str, int, float, bool)) or obj is None:
@@ -311,7 +316,7 @@ def _plain(obj):
 def write_manifest(path, manifest: dict) -> Path:
     """Write a JSON manifest (UTF-8, indented, key order kept)."""
     path = Path(path)
-    text = json.dumps(_plain(manifest), indent=2, allow_nan=False) + "\n"
+    text = json.dumps(plain(manifest), indent=2, allow_nan=False) + "\n"
     with atomic_path(path) as tmp:
         tmp.write_text(text, encoding="utf-8")
     return path

@@ -1,0 +1,100 @@
+"""What keeps a run linear in its size: appended manifest updates, the DEM kept open per task.
+
+References: the manifest's own guarantee (a killed run lists exactly its complete units, and
+--resume reuses exactly those), checked against a clean run of the same config; reads through a
+kept-open DEM compared with rasterio reading the same windows.
+"""
+from __future__ import annotations
+
+import json
+import pickle
+
+import numpy as np
+import pytest
+import rasterio
+from rasterio.windows import Window
+from test_batch import assert_same, config_for, multi_valley, outputs_of
+
+from geoflow.batch import assemble, manifest, run
+from geoflow.batch.layout import UPDATES_NAME
+from geoflow.terrain import open_dem
+
+
+def small_manifest(tmp_path) -> manifest.Manifest:
+    data = {"run_id": "abc", "events": ["q1", "q2"], "reaches": {}, "units": {}}
+    man = manifest.Manifest(path=tmp_path / "manifest.json", data=data)
+    man.save()
+    return man
+
+
+def record(man, rid):
+    man.record_reach(rid, {"status": "complete", "error": None, "files": [f"rasters/{rid}/q1_wse.tif"],
+                           "events": {e: {"status": "complete", "error": None, "files": [f"{rid}/{e}"]}
+                                      for e in ("q1", "q2")}})
+    man.checkpoint(rid)
+
+
+def test_updates_between_rewrites_are_replayed_exactly(tmp_path, monkeypatch):
+    man = small_manifest(tmp_path)
+    monkeypatch.setattr(manifest, "REWRITE_SHARE", 0.0)          # every checkpoint appends a line
+    for rid in ("r1", "r2", "r3"):
+        record(man, rid)
+    on_disk = json.loads((tmp_path / "manifest.json").read_text())
+    assert on_disk["units"] == {} and len((tmp_path / UPDATES_NAME).read_text().splitlines()) == 3
+    with open(tmp_path / UPDATES_NAME, "a") as f:
+        f.write(json.dumps({"run_id": "other", "reach": "old", "entry": {}, "units": {"old/q1": {}}}) + "\n")
+        f.write('{"run_id": "abc", "reach": "r4", "ent')           # a kill in the middle of an append
+    prev = manifest.load_previous(tmp_path)
+    assert prev["units"] == man.data["units"] and prev["reaches"] == man.data["reaches"]
+    assert sorted(prev["units"]) == [f"r{k}/q{e}" for k in (1, 2, 3) for e in (1, 2)]
+    man.save()                                                    # a whole rewrite absorbs the updates
+    assert not (tmp_path / UPDATES_NAME).exists()
+    assert json.loads((tmp_path / "manifest.json").read_text())["units"] == man.data["units"]
+
+
+def test_cheap_rewrites_happen_after_every_reach(tmp_path, monkeypatch):
+    man = small_manifest(tmp_path)
+    monkeypatch.setattr(manifest, "REWRITE_SHARE", float("inf"))
+    record(man, "r1")
+    assert not (tmp_path / UPDATES_NAME).exists()
+    assert "r1/q2" in json.loads((tmp_path / "manifest.json").read_text())["units"]
+
+
+def test_run_killed_before_its_last_rewrite_resumes_from_the_updates(tmp_path, monkeypatch):
+    v = multi_valley(tmp_path, n_reaches=3, length=500.0)
+    clean = run(config_for(v, tmp_path / "clean", "out_clean"))
+    cfg = config_for(v, tmp_path / "cut", "out_cut")
+    out = v.dem.parent / "out_cut"
+    monkeypatch.setattr(manifest, "REWRITE_SHARE", 0.0)
+
+    def killed(*args, **kwargs):
+        raise KeyboardInterrupt                                   # dies before the final manifest
+    monkeypatch.setattr(assemble, "finish", killed)
+    with pytest.raises(KeyboardInterrupt):
+        run(cfg)
+    assert json.loads((out / "manifest.json").read_text())["units"] == {}
+    assert len((out / UPDATES_NAME).read_text().splitlines()) == 3
+    monkeypatch.undo()
+    resumed = run(cfg, resume=True)
+    assert resumed.reused_units == 3 and not resumed.failed
+    assert not (out / UPDATES_NAME).exists()
+    assert_same(outputs_of(clean.output_dir), outputs_of(out))
+
+
+def test_a_kept_open_dem_reads_the_same_and_closes(tmp_path):
+    v = multi_valley(tmp_path, n_reaches=1, length=300.0)
+    dem = open_dem(v.dem)
+    wins = [Window(0, 0, 50, 40), Window(100, 20, 64, 64), Window(5, 7, 1, 1)]
+    with rasterio.open(v.dem) as ds:                               # reference reader
+        ref = [ds.read(1, window=w).astype(np.float64) for w in wins]
+    with dem.kept_open():
+        with dem.kept_open():                                      # re-entrant
+            got = [dem.read(w) for w in wins]
+        from geoflow import terrain
+        handle = terrain._handles()[str(v.dem)][0]
+        assert not handle.closed
+        again = pickle.loads(pickle.dumps(dem))                   # picklable while open (Dask)
+        np.testing.assert_array_equal(again.read(wins[0]), ref[0])
+    assert handle.closed and str(v.dem) not in terrain._handles()
+    for a, b in zip(got, ref):
+        np.testing.assert_array_equal(a, b)
