@@ -25,6 +25,7 @@ from affine import Affine
 from rasterio.crs import CRS
 from rasterio.windows import Window
 
+from . import timing
 from .errors import InputDataError
 
 _LOCAL = threading.local()      # per thread: {path: [dataset, depth]} of DEMs kept open
@@ -93,13 +94,8 @@ class Dem:
         """Elevations (m, float64) in ``window`` (whole DEM if None), NaN where nodata."""
         entry = _handles().get(str(self.path))
         try:
-            if entry is not None:
-                if entry[0] is None:
-                    entry[0] = rasterio.open(self.path)
-                arr = entry[0].read(1, window=window, masked=True)
-            else:
-                with rasterio.open(self.path) as ds:
-                    arr = ds.read(1, window=window, masked=True)
+            with timing.stage("io_read"):
+                arr = self._read_masked(entry, window)
         except rasterio.errors.RasterioError as exc:
             raise _read_error(self.path, exc) from None
         out = np.asarray(arr.filled(np.nan), dtype=np.float64)
@@ -124,6 +120,13 @@ class Dem:
             raise InputDataError(f"{self.path}: cannot read the DEM's cells ({exc}); check it opens in a GIS") from None
         out = np.asarray(arr.astype(np.float64).filled(np.nan)) * self.z_factor
         return out, _bounds(self.window_transform(win), int(win.width), int(win.height))
+    def _read_masked(self, entry, window):
+        if entry is not None:
+            if entry[0] is None:
+                entry[0] = rasterio.open(self.path)
+            return entry[0].read(1, window=window, masked=True)
+        with rasterio.open(self.path) as ds:
+            return ds.read(1, window=window, masked=True)
 
     def sample(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         """Bilinear interpolation of elevation (m) at points (x, y) in DEM CRS.

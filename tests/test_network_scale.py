@@ -6,8 +6,13 @@ kept-open DEM compared with rasterio reading the same windows.
 """
 from __future__ import annotations
 
+import concurrent.futures as cf
 import json
+import os
 import pickle
+import re
+import subprocess
+import sys
 
 import numpy as np
 import pytest
@@ -15,7 +20,7 @@ import rasterio
 from rasterio.windows import Window
 from test_batch import assert_same, config_for, multi_valley, outputs_of
 
-from geoflow.batch import assemble, manifest, run
+from geoflow.batch import assemble, manifest, reports, run
 from geoflow.batch.layout import UPDATES_NAME
 from geoflow.terrain import open_dem
 
@@ -98,3 +103,59 @@ def test_a_kept_open_dem_reads_the_same_and_closes(tmp_path):
     assert handle.closed and str(v.dem) not in terrain._handles()
     for a, b in zip(got, ref):
         np.testing.assert_array_equal(a, b)
+
+
+def _modules_after(code: str) -> set:
+    out = subprocess.run([sys.executable, "-c", code + "\nimport sys, json; print(json.dumps(sorted(sys.modules)))"],
+                         capture_output=True, text=True, check=True)
+    return set(json.loads(out.stdout.strip().splitlines()[-1]))
+
+
+def test_check_and_run_import_only_what_their_stages_need(tmp_path):
+    # Measured with sys.modules in a fresh interpreter: check loads no mapping, plotting or cluster
+    # code; an in-process run with reports leaves matplotlib to its report process (2+ CPUs).
+    v = multi_valley(tmp_path, n_reaches=1, length=300.0)
+    cfg = config_for(v, tmp_path / "imp", "out_imp")
+    checked = _modules_after(f"from geoflow.batch import check\ncheck({str(cfg)!r})")
+    assert not {"matplotlib", "geoflow.mapping", "geoflow.report", "scipy.ndimage", "dask"} & checked
+    ran = _modules_after(f"from geoflow.batch import run\nassert not run({str(cfg)!r}).failed")
+    assert (v.dem.parent / "out_imp" / "report" / "r1.html").is_file()
+    assert "geoflow.mapping" in ran and "dask" not in ran
+    if (os.cpu_count() or 1) >= 2:
+        assert "matplotlib" not in ran
+
+
+def test_reports_from_the_report_process_equal_inline_ones(tmp_path, monkeypatch):
+    # Reference: the same report drawn inline (write_reach_report in this process), the minute
+    # stamp aside; and a report process that dies leaves the task to draw the report itself.
+    from geoflow.batch import reach, tasks
+    from geoflow.batch.inputs import open_inputs
+    from geoflow.config import load_config
+
+    v = multi_valley(tmp_path, n_reaches=1, length=300.0)
+    cfg_path = config_for(v, tmp_path / "rep", "out_rep")
+    res = run(cfg_path)
+    page = (res.output_dir / "report" / "r1.html").read_text()
+    cfg = load_config(cfg_path)
+    inputs = open_inputs(cfg)
+    geom = reach.build_geometry(cfg, inputs, "r1", inputs.line_of("r1"))
+    inline = tasks.write_reach_report(cfg, inputs, geom)[0].read_text()
+    stamp = re.compile(r"\d{4}-\d\d-\d\d \d\d:\d\d")
+    assert stamp.sub("", page) == stamp.sub("", inline)
+
+    class Dead:
+        def submit(self, *args):
+            fut = cf.Future()
+            fut.set_exception(cf.process.BrokenProcessPool("helper killed"))
+            return fut
+
+        submit_index = submit
+
+        def close(self):
+            pass
+    monkeypatch.setattr(reports, "start", lambda *a: Dead())
+    (res.output_dir / "report" / "r1.html").unlink()
+    (res.output_dir / "report" / "index.html").unlink()
+    again = run(cfg_path)
+    assert not again.failed and (again.output_dir / "report" / "r1.html").is_file()
+    assert (again.output_dir / "report" / "index.html").is_file()

@@ -5,6 +5,7 @@ give byte-identical tables whichever engine computed the reaches and in whatever
 """
 from __future__ import annotations
 
+import concurrent.futures as cf
 import os
 import time
 
@@ -17,8 +18,8 @@ import shapely
 from .. import __version__, outputs
 from ..config import Config
 from ..constants import CAUTION
-from ..mapping.mosaic import mosaic_max, overlap_patches, write_vrt
 from ..naming import safe_name
+from . import tasks
 from .layout import MANIFEST_NAME, relative_name, unrecorded_files
 from .manifest import Manifest, calibration_entry, part_paths, unit_key
 from .tasks import INDEX_NAME, read_profile_parts
@@ -73,8 +74,10 @@ def finish(cfg: Config, inputs, man: Manifest, result) -> None:
 
 
 def _write_index(cfg: Config, inputs, man: Manifest, result, profile, sections, extents):
-    """report/index.html: every reach and event with status, flags and links (see geoflow.report.index)."""
-    from .. import report
+    """report/index.html: every reach and event with status, flags and links (see geoflow.report.index).
+
+    Drawn by the run's report process when it has one (matplotlib stays out of this process).
+    """
     out = cfg.run.output_dir
     rdir = out / "report"
     pages = {rid: f"{safe_name(rid)}.html" for rid in man.data["reaches"] if (rdir / f"{safe_name(rid)}.html").is_file()}
@@ -84,12 +87,25 @@ def _write_index(cfg: Config, inputs, man: Manifest, result, profile, sections, 
     files = [(relative_name(out, p), os.path.relpath(p, rdir)) for k, p in sorted(result.paths.items())
              if k != "report_index"] + [(MANIFEST_NAME, os.path.relpath(out / MANIFEST_NAME, rdir))]
     order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)
-    run = report.RunPage(run_facts=report.run_facts(cfg, inputs.dem), events=[e.name for e in cfg.events],
-                         reaches={rid: man.data["reaches"].get(rid, {"status": "failed"}) for rid in order},
-                         units=man.data["units"], profile=profile, outlines=outlines,
-                         centrelines=dict(inputs.reaches), section_lines=lines, pages=pages, files=files,
-                         crossings=list(man.data.get("sections_crossing_other_reaches", [])))
-    return report.write_index(rdir / INDEX_NAME, run, caution=CAUTION)
+    parts = dict(events=[e.name for e in cfg.events],
+                 reaches={rid: man.data["reaches"].get(rid, {"status": "failed"}) for rid in order},
+                 units=man.data["units"], profile=profile, outlines=outlines,
+                 centrelines=inputs.lines_by_id(), section_lines=lines, pages=pages, files=files,
+                 crossings=list(man.data.get("sections_crossing_other_reaches", [])))
+    path = rdir / INDEX_NAME
+    if tasks.REPORTS is not None:
+        try:
+            return tasks.REPORTS.submit_index(path, str(cfg.path), cfg.sha256, inputs.dem, parts).result()
+        except cf.process.BrokenProcessPool:
+            pass                                   # the helper died: draw it here
+    return write_index_page(path, cfg, inputs.dem, parts)
+
+
+def write_index_page(path, cfg: Config, dem, parts: dict):
+    """Draw and write the index page from :func:`_write_index`'s ``parts`` (the RunPage fields)."""
+    from .. import report
+    run = report.RunPage(run_facts=report.run_facts(cfg, dem), **parts)
+    return report.write_index(path, run, caution=CAUTION)
 
 
 def cross_reach_crossings(sections: gpd.GeoDataFrame) -> list[str]:
@@ -118,6 +134,7 @@ def _mosaics(cfg: Config, done: dict[str, list[str]]) -> dict:
     every reach raster with the patches on top, i.e. the largest value everywhere. Nothing is
     written for an event and kind with fewer than two reach rasters.
     """
+    from ..mapping.mosaic import mosaic_max, overlap_patches, write_vrt  # only runs that map need it
     written = {}
     for ev in cfg.events:
         for kind in ("wse", "depth"):
@@ -144,6 +161,7 @@ def _mosaics(cfg: Config, done: dict[str, list[str]]) -> dict:
 
 def _spreads(cfg: Config, done: dict[str, list[str]]) -> dict:
     """uncertainty/<event>_wse_spread.tif: high-minus-low WSE of every reach (the larger where reaches overlap)."""
+    from ..mapping.mosaic import mosaic_max  # only runs that map need it
     written = {}
     for ev in cfg.events:
         tifs = [part_paths(cfg.run.output_dir, safe_name(rid), safe_name(ev.name))["spread"]

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+import numpy as np
 import shapely
 from shapely.geometry import box
 
@@ -30,6 +31,24 @@ class Inputs:
     storage_areas: object = None                     # polygons that carry no flow ([sections] storage_areas)
     survey: dict = field(default_factory=dict)       # reach_id -> SurveyPoints near it ([channel] survey)
     marks: dict = field(default_factory=dict)        # reach_id -> marks.ReachMarks ([calibration] observations)
+    _index: dict = field(default_factory=dict, compare=False, repr=False)   # look-ups built on first use
+
+    def line_of(self, reach_id: str):
+        """The centreline of ``reach_id`` (a dict built once: O(1) per reach, not O(reaches))."""
+        return self.lines_by_id()[reach_id]
+
+    def lines_by_id(self) -> dict:
+        """{reach id: centreline}, built once (read it, do not change it)."""
+        if "lines" not in self._index:
+            self._index["lines"] = dict(self.reaches)
+        return self._index["lines"]
+
+    def reaches_near(self, bounds) -> list[str]:
+        """Ids (layer order) of the centrelines whose box meets ``bounds`` (left, bottom, right, top)."""
+        if "tree" not in self._index:
+            self._index["tree"] = shapely.STRtree([line for _, line in self.reaches])
+        hits = np.sort(self._index["tree"].query(box(*bounds)))
+        return [self.reaches[int(k)][0] for k in hits]
 
 
 def open_inputs(cfg: Config) -> Inputs:

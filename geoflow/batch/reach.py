@@ -13,7 +13,7 @@ import pandas as pd
 import shapely
 from shapely.geometry import Point
 
-from .. import roughness, sections
+from .. import roughness, sections, timing
 from ..config import BoundarySpec, Config, Event
 from ..config.crosscheck import junction_order
 from ..errors import GeoflowError, HydraulicsError
@@ -36,21 +36,24 @@ def build_geometry(cfg: Config, inputs: Inputs, reach_id: str, line) -> ReachGeo
     and the structures placed between their faces.
     """
     sc = cfg.sections.for_reach(reach_id)
-    if reach_id in inputs.user_lines:
-        geom = sections.sections_from_lines(reach_id, line, inputs.user_lines[reach_id], inputs.dem,
-                                            sample_step=sc.sample_step, source=cfg.sections.lines)
-    else:
-        shared = layout_inputs(cfg, inputs)
-        geom = shared.drafts.get(reach_id) or _cut(cfg, inputs, shared, reach_id, line, shared.territory)
-    if inputs.storage_areas is not None and len(inputs.storage_areas):
-        geom = roughness.split_at_cover_edges(geom, _Polygons(inputs.storage_areas))
-    geom = roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
-                                      default_n=cfg.roughness.default_n, update_lengths=False)
-    geom = fit_channel(cfg, inputs, geom)
-    geom = sections.mark_storage(geom, inputs.dem, areas=inputs.storage_areas, detect=cfg.sections.detect_storage,
-                                 step=sc.sample_step)
-    geom = dataclasses.replace(geom, lengths=sections.floodplain_lengths(geom))
-    geom = structures.place(cfg, geom, inputs.dem)
+    with timing.stage("sections"):
+        if reach_id in inputs.user_lines:
+            geom = sections.sections_from_lines(reach_id, line, inputs.user_lines[reach_id], inputs.dem,
+                                                sample_step=sc.sample_step, source=cfg.sections.lines)
+        else:
+            shared = layout_inputs(cfg, inputs)
+            geom = shared.drafts.get(reach_id) or _cut(cfg, inputs, shared, reach_id, line, shared.territory)
+    with timing.stage("overlay"):
+        if inputs.storage_areas is not None and len(inputs.storage_areas):
+            geom = roughness.split_at_cover_edges(geom, _Polygons(inputs.storage_areas))
+        geom = roughness.assign_roughness(geom, inputs.cover, cfg.roughness.channel_class, cfg.roughness.n_table(),
+                                          default_n=cfg.roughness.default_n, update_lengths=False)
+    with timing.stage("sections"):
+        geom = fit_channel(cfg, inputs, geom)
+        geom = sections.mark_storage(geom, inputs.dem, areas=inputs.storage_areas,
+                                     detect=cfg.sections.detect_storage, step=sc.sample_step)
+        geom = dataclasses.replace(geom, lengths=sections.floodplain_lengths(geom))
+        geom = structures.place(cfg, geom, inputs.dem)
     notes = tuple(inputs.warnings.get(reach_id, ()))
     return dataclasses.replace(geom, warnings=notes + tuple(geom.warnings)) if notes else geom
 

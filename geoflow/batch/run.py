@@ -25,13 +25,14 @@ from pathlib import Path
 
 import pandas as pd
 
+from .. import timing
 from ..config import Config
 from ..config.crosscheck import junction_order
 from ..constants import CAUTION
 from ..errors import GeoflowError, OutputError, is_disk_full, write_error
 from ..naming import safe_name
 from ..sections.channel import describe_channel
-from . import assemble, layout, manifest
+from . import assemble, layout, manifest, reports, tasks
 from .engines import engine
 from .inputs import Inputs
 from .lock import FolderLock
@@ -132,30 +133,48 @@ def run(config, workers: int = 1, scheduler: str | None = None, resume: bool = F
     """
     many = isinstance(config, (list, tuple))
     cfgs = [as_config(c) for c in (config if many else [config])]
-    plans = [_plan(c, tuple(o for o in cfgs if o is not c), keep_going) for c in cfgs]   # raises before writing
-    runner = engine(workers, scheduler)          # an unreachable scheduler fails here, before writing
-    t0 = time.perf_counter()
     with contextlib.ExitStack() as stack:
+        tasks.REPORTS = stack.enter_context(_report_process(workers, scheduler, cfgs))  # warms up while we validate
+        plans = [_plan(c, tuple(o for o in cfgs if o is not c), keep_going) for c in cfgs]   # raises before writing
+        runner = engine(workers, scheduler)          # an unreachable scheduler fails here, before writing
         stack.callback(runner.close)
-        locks = [stack.enter_context(FolderLock(p.cfg.run.output_dir, p.cfg.run.name)) for p in plans]
-        stack.enter_context(_logging([p.cfg.run.output_dir for p in plans]))
-        for p, lock in zip(plans, locks):
-            if lock.previous_owner:
-                log.warning("run %s: took over the lock left by a run that ended without releasing it (%s)",
-                            p.cfg.run.name, lock.previous_owner)
-            _start(p, resume)
-            _clear_previous(p)
-        _compute(plans, runner, progress)
-        for p in plans:
-            p.result.elapsed_s = time.perf_counter() - t0
-            _finish(p)
-    results = [p.result for p in plans]
+        results = _run_plans(plans, runner, stack, resume, progress)
     return results if many else results[0]
+
+
+@contextlib.contextmanager
+def _report_process(workers: int, scheduler, cfgs):
+    helper = reports.start(workers, scheduler, cfgs)
+    try:
+        yield helper
+    finally:
+        tasks.REPORTS = None
+        if helper is not None:
+            helper.close()
+
+
+def _run_plans(plans: list[_Plan], runner, stack: contextlib.ExitStack, resume: bool, progress: bool) -> list:
+    """Lock, clear, compute and assemble every planned config (validation already passed)."""
+    t0 = time.perf_counter()
+    locks = [stack.enter_context(FolderLock(p.cfg.run.output_dir, p.cfg.run.name)) for p in plans]
+    stack.enter_context(_logging([p.cfg.run.output_dir for p in plans]))
+    for p, lock in zip(plans, locks):
+        if lock.previous_owner:
+            log.warning("run %s: took over the lock left by a run that ended without releasing it (%s)",
+                        p.cfg.run.name, lock.previous_owner)
+        _start(p, resume)
+        _clear_previous(p)
+    _compute(plans, runner, progress)
+    for p in plans:
+        p.result.elapsed_s = time.perf_counter() - t0
+        _finish(p)
+    return [p.result for p in plans]
 
 
 def _finish(p: _Plan) -> None:
     try:
-        assemble.finish(p.cfg, p.inputs, p.manifest, p.result)
+        with timing.stage("assemble"):
+            assemble.finish(p.cfg, p.inputs, p.manifest, p.result)
     except Exception as exc:
         if not isinstance(exc, GeoflowError) and not is_disk_full(exc):
             raise

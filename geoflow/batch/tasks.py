@@ -9,6 +9,7 @@ cached per process, keyed on the input identity, so an edited input is never ser
 """
 from __future__ import annotations
 
+import concurrent.futures as cf
 import functools
 import time
 import traceback
@@ -18,7 +19,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .. import __version__, outputs
+from .. import __version__, outputs, timing
 from ..config import Config, load_config
 from ..constants import CAUTION
 from ..errors import ConfigError, GeoflowError, HydraulicsError, InputDataError, is_disk_full, nearly_full, write_error
@@ -34,6 +35,10 @@ from .summary import event_summary
 
 #: geometry built while validating, reused by in-process (and forked) tasks: {(identity, reach id): geometry}
 GEOMETRY_CACHE: dict[tuple[str, str], ReachGeometry] = {}
+#: a :class:`geoflow.batch.reports.ReportProcess` drawing reports beside an in-process run (or None: inline)
+REPORTS = None
+#: a :class:`geoflow.batch.reports.ReportProcess` drawing reports beside an in-process run (or None: inline)
+REPORTS = None
 
 
 @dataclass(frozen=True)
@@ -100,37 +105,41 @@ def compute_reach(spec: TaskSpec) -> dict:
 
 
 def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float) -> None:
+    """The stages of one reach; ``timings_s`` gets the seconds each took (:mod:`geoflow.timing`)."""
     rid = spec.reach_id
-    geom = GEOMETRY_CACHE.get((spec.identity, rid)) or reach.build_geometry(cfg, inputs, rid, dict(inputs.reaches)[rid])
+    before = timing.snapshot()
+    geom = GEOMETRY_CACHE.get((spec.identity, rid)) or reach.build_geometry(cfg, inputs, rid, inputs.line_of(rid))
     info["sections"], info["warnings"] = len(geom.sections), list(geom.warnings)
     if geom.channel:
         info["channel"] = geom.channel
     if geom.structures:
         info["structures"] = structures.manifest_entry(cfg, geom)
-    info["files"] = [relative_name(cfg.run.output_dir, _write_sections_part(cfg, inputs, geom))]
-    t1 = time.perf_counter()
+    with timing.stage("tables"):
+        info["files"] = [relative_name(cfg.run.output_dir, _write_sections_part(cfg, inputs, geom))]
     todo = [e for e in cfg.events if e.name in spec.events]
     marks = inputs.marks.get(rid) if cfg.calibration is not None else None
     needed = [e for e in cfg.events if e.name in spec.events or (marks is not None and e.name in set(marks.event))]
     junction = _junction_wse(cfg, inputs, geom, needed, spec.junction_events)
-    factors = _calibrate(cfg, geom, marks, junction, info) if marks is not None else {}
-    t2 = time.perf_counter()
-    profiles = {case: reach.solve_reach(cfg, geom, todo, None if junction is None else junction[case],
-                                        factors=combine(factors, case_factors(cfg.roughness.classes, case)))
-                for case in cfg.roughness.all_cases()}
-    info["timings_s"].update(calibration=t2 - t1, hydraulics=time.perf_counter() - t2)
+    with timing.stage("calibration"):
+        factors = _calibrate(cfg, geom, marks, junction, info) if marks is not None else {}
+    with timing.stage("hydraulics"):
+        profiles = {case: reach.solve_reach(cfg, geom, todo, None if junction is None else junction[case],
+                                            factors=combine(factors, case_factors(cfg.roughness.classes, case)))
+                    for case in cfg.roughness.all_cases()}
     for ev in todo:
         info["events"][ev.name] = _compute_event(cfg, inputs, geom, {c: p[ev.name] for c, p in profiles.items()},
                                                  ev, factors)
     if cfg.rating_curves is not None:
-        t3 = time.perf_counter()
-        path = part_paths(cfg.run.output_dir, safe_name(rid))["ratings"]
-        info["files"].append(relative_name(cfg.run.output_dir, outputs.write_rating_csv(
-            path, ratings.rating_rows(cfg, geom, factors))))
-        info["timings_s"]["rating_curves"] = time.perf_counter() - t3
-    t4 = time.perf_counter()
-    info["files"] += [relative_name(cfg.run.output_dir, f) for f in _write_reach_report(cfg, inputs, geom)]
-    info["timings_s"].update(sections=t1 - t0, report=time.perf_counter() - t4, total=time.perf_counter() - t0)
+        with timing.stage("rating_curves"):
+            path = part_paths(cfg.run.output_dir, safe_name(rid))["ratings"]
+            info["files"].append(relative_name(cfg.run.output_dir, outputs.write_rating_csv(
+                path, ratings.rating_rows(cfg, geom, factors))))
+    # the report is drawn from the rasters and outlines just written: after the maps
+    pending = REPORTS.submit(spec, geom) if REPORTS is not None and "report" in cfg.mapping.outputs else None
+    with timing.stage("report"):
+        info["files"] += [relative_name(cfg.run.output_dir, f) for f in _report_files(cfg, inputs, geom, pending)]
+    info["timings_s"] = {k: round(v, 4) for k, v in timing.since(before).items()}
+    info["timings_s"]["total"] = round(time.perf_counter() - t0, 4)
     failed = [e for e, u in info["events"].items() if u["status"] != "complete"]
     info["status"] = "failed" if failed else "complete"
     info["error"] = "; ".join(info["events"][e]["error"] for e in failed) or None
@@ -165,7 +174,7 @@ def _junction_wse(cfg: Config, inputs, geom, events, complete: tuple[str, ...]) 
         raise HydraulicsError(f"reach {geom.reach_id!r}: junction reach {down.reach!r} has no results; it failed "
                               "or was not computed, so this reach cannot be either")
     try:
-        return {case: reach.junction_wse_from(dict(inputs.reaches)[down.reach], prof[prof["roughness_case"] == case],
+        return {case: reach.junction_wse_from(inputs.line_of(down.reach), prof[prof["roughness_case"] == case],
                                               geom.centreline, [e.name for e in events], down.reach)
                 for case in cfg.roughness.all_cases()}
     except HydraulicsError as exc:
@@ -181,14 +190,17 @@ def _compute_event(cfg: Config, inputs, geom, profs: dict, ev, factors: dict) ->
     t1 = time.perf_counter()
     parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(ev.name))
     try:
-        rows = pd.concat([outputs.profile_rows(geom, ev.name, p, case) for case, p in profs.items()],
-                         ignore_index=True)
-        files = _write_maps(cfg, inputs, geom, ev.name, profs, factors)
-        files.append(outputs.write_profile_csv(parts["profile"], rows))
-        if geom.structures:
-            table = pd.concat([outputs.structure_rows(geom, ev.name, p, case) for case, p in profs.items()],
-                              ignore_index=True)
-            files.append(outputs.write_structures_csv(parts["structures"], table))
+        with timing.stage("tables"):
+            rows = pd.concat([outputs.profile_rows(geom, ev.name, p, case) for case, p in profs.items()],
+                             ignore_index=True)
+        with timing.stage("mapping"):
+            files = _write_maps(cfg, inputs, geom, ev.name, profs, factors)
+        with timing.stage("tables"):
+            files.append(outputs.write_profile_csv(parts["profile"], rows))
+            if geom.structures:
+                table = pd.concat([outputs.structure_rows(geom, ev.name, p, case) for case, p in profs.items()],
+                                  ignore_index=True)
+                files.append(outputs.write_structures_csv(parts["structures"], table))
         t2 = time.perf_counter()
     except GeoflowError as exc:
         return {"status": "failed", "error": str(exc)}
@@ -284,7 +296,24 @@ def read_profile_parts(cfg: Config, reach_id: str, events: list[str] | None = No
     return pd.concat(frames, ignore_index=True) if frames else None
 
 
-def _write_reach_report(cfg: Config, inputs, geom) -> list[Path]:
+def _report_files(cfg: Config, inputs, geom, pending) -> list[Path]:
+    """The reach's report: from the report process (``pending``), or drawn here."""
+    if pending is not None:
+        try:
+            return pending.result()
+        except cf.process.BrokenProcessPool:
+            pass                                   # the helper died: draw it here
+    return write_reach_report(cfg, inputs, geom)
+
+
+def report_in_helper(spec: TaskSpec, geom: ReachGeometry) -> list[Path]:
+    """What the report process runs for one reach (it opens the task's inputs itself, once)."""
+    cfg = _config(spec.config_path, spec.config_sha256, spec.identity)
+    inputs = _inputs(spec.config_path, spec.config_sha256, spec.identity)
+    return write_reach_report(cfg, inputs, geom)
+
+
+def write_reach_report(cfg: Config, inputs, geom) -> list[Path]:
     """The reach's HTML page, from its profile parts, the rasters and outlines just written, and a
     DEM window (all read here, at the edge; the report itself reads nothing)."""
     if "report" not in cfg.mapping.outputs:
@@ -296,7 +325,7 @@ def _write_reach_report(cfg: Config, inputs, geom) -> list[Path]:
     from .. import report
     prof["flags"] = prof["flags"].fillna("")
     events = [e.name for e in cfg.events if e.name in set(prof["event"])]
-    lines = dict(inputs.reaches)
+    lines = inputs.lines_by_id()
     ctx = report.ReachContext(
         run_facts=report.run_facts(cfg, inputs.dem), section_facts=report.section_facts(cfg, geom.reach_id,
                                                                                          len(geom.sections)),
@@ -336,7 +365,8 @@ def _map_layers(cfg: Config, inputs, geom, events):
                 ext = ext[ext["roughness_case"] == "normal"]
             outlines[ev] = list(ext.geometry)
     area = shapely.box(*bounds)
-    others = {rid: line for rid, line in inputs.reaches if rid != geom.reach_id and line.intersects(area)}
+    others = {rid: inputs.line_of(rid) for rid in inputs.reaches_near(bounds)
+              if rid != geom.reach_id and inputs.line_of(rid).intersects(area)}
     places = [(geom.centreline.interpolate(c), label) for c, label in geom.structure_markers()]
     return MapLayers(dem=inputs.dem.read_preview(bounds, PREVIEW_CELLS), depth=depth, outlines=outlines,
                       other_lines=others, structures=tuple((p.x, p.y, label) for p, label in places))

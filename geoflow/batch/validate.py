@@ -28,6 +28,7 @@ import numpy as np
 import shapely
 from shapely.geometry import box
 
+from .. import timing
 from ..config import Config, load_config
 from ..config.crosscheck import boundary_level_problems, discharge_at_ends, raise_problems, reach_length_problems
 from ..errors import GeoflowError, GeometryError, InputDataError
@@ -96,8 +97,9 @@ def validate(config: str | Path | Config, others: tuple = ()) -> CheckResult:
     ``others``: configs run together with this one (their inputs are protected from its outputs).
     """
     cfg = as_config(config)
-    inputs = open_inputs(cfg)
-    with inputs.dem.kept_open():
+    with timing.stage("inputs"):
+        inputs = open_inputs(cfg)
+    with inputs.dem.kept_open(), timing.stage("validate"):
         problems = reach_problems(cfg, inputs)
         geoms = {}
         for rid, line in inputs.reaches:

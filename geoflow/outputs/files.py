@@ -19,6 +19,7 @@ import rasterio.enums
 import rasterio.shutil
 from rasterio.io import MemoryFile
 
+from .. import timing
 from ..constants import CAUTION, NODATA
 from ..errors import GeoflowError, OutputError, is_disk_full, write_error
 from .tables import (
@@ -101,7 +102,7 @@ def write_raster(path, array, transform, crs, nodata: float = NODATA, blocksize:
     height, width = arr.shape
     options = cog_options(width, height, blocksize)
     path = Path(path)
-    with atomic_path(path) as tmp:
+    with atomic_path(path) as tmp, timing.stage("io_write"):
         try:
             with MemoryFile() as mem:
                 with mem.open(driver="GTiff", width=width, height=height, count=1, dtype="float32",
@@ -148,11 +149,14 @@ class BlockWriter:
     def __call__(self, array, window) -> None:
         """Write ``array`` (NaN = no data) to ``window``."""
         arr = np.asarray(array, dtype=np.float32)
-        self._ds.write(np.where(np.isnan(arr), self._nodata, arr), 1, window=window)
+        arr = np.where(np.isnan(arr), self._nodata, arr)
+        with timing.stage("io_write"):
+            self._ds.write(arr, 1, window=window)
 
     def read(self, window) -> np.ndarray:
         """float32 values written so far in ``window`` (NaN = no data)."""
-        arr = self._ds.read(1, window=window)
+        with timing.stage("io_read"):
+            arr = self._ds.read(1, window=window)
         return np.where(arr == self._nodata, np.float32(np.nan), arr)
 
 
@@ -180,11 +184,16 @@ def block_raster_writer(path, width: int, height: int, transform, crs, nodata: f
     with atomic_path(path) as tmp:
         build = tmp.with_name(tmp.name + "-tiled.tif")
         try:
-            with rasterio.open(build, "w+", width=width, height=height, count=1, dtype="float32", crs=crs,
-                               transform=transform, nodata=nodata, **tiled_gtiff_options(blocksize)) as dst:
+            with timing.stage("io_write"):
+                dst = rasterio.open(build, "w+", width=width, height=height, count=1, dtype="float32", crs=crs,
+                                    transform=transform, nodata=nodata, **tiled_gtiff_options(blocksize))
+            try:
                 _describe(dst, meta)
                 yield BlockWriter(dst, nodata)
-            with rasterio.open(build) as src:
+            finally:
+                with timing.stage("io_write"):
+                    dst.close()
+            with timing.stage("io_write"), rasterio.open(build) as src:
                 rasterio.shutil.copy(src, str(tmp), driver="COG", **cog_options(width, height, blocksize))
         except rasterio.errors.RasterioError as exc:
             raise write_error(path, exc) from None
@@ -248,7 +257,7 @@ def _write_csv(path, df, columns) -> Path:
             out[col] = _join_flags(out[col])
         elif col in _PROFILE_FORMATS or out[col].dtype.kind == "f":
             out[col] = _format_column(out[col], _PROFILE_FORMATS.get(col, "%.6g"))
-    with atomic_path(path) as tmp:
+    with atomic_path(path) as tmp, timing.stage("io_write"):
         out.to_csv(tmp, index=False, lineterminator="\n")
     return path
 
@@ -276,7 +285,7 @@ def _write_gpkg(path, gdf, layer: str, required, promote_to_multi: bool) -> Path
     out = _ordered(gdf, list(required) + [gdf.geometry.name], path)
     if "flags" in out.columns:
         out["flags"] = _join_flags(out["flags"])
-    with atomic_path(path) as tmp:
+    with atomic_path(path) as tmp, timing.stage("io_write"):
         try:
             out.to_file(tmp, layer=layer, driver="GPKG", engine="pyogrio", promote_to_multi=promote_to_multi,
                         layer_options={"DESCRIPTION": LAYER_MEANING[layer]},
@@ -317,6 +326,6 @@ def write_manifest(path, manifest: dict) -> Path:
     """Write a JSON manifest (UTF-8, indented, key order kept)."""
     path = Path(path)
     text = json.dumps(plain(manifest), indent=2, allow_nan=False) + "\n"
-    with atomic_path(path) as tmp:
+    with atomic_path(path) as tmp, timing.stage("io_write"):
         tmp.write_text(text, encoding="utf-8")
     return path

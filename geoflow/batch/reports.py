@@ -1,0 +1,64 @@
+"""Reach reports rendered in a helper process beside an in-process run, off its critical path.
+
+A run in this process (``--workers 1``, the default) uses one core; drawing a report's figures
+(matplotlib, Agg) takes about as long as mapping a small reach. With a second core free, a
+:class:`ReportProcess` forked when the run starts imports matplotlib there (while this process
+validates) and renders each reach's report from the rasters and outlines the task has just
+written (the helper opens the run's inputs once, for the DEM preview and the other reaches on the
+map). The reach task still waits for its report before it returns, so a reach is recorded
+complete only with its report on disk, exactly as when the report is drawn inline. matplotlib is
+never imported here.
+
+Used only where forking is safe (POSIX, no other threads) and at least two CPUs are available;
+otherwise reports are drawn inline by the task. A helper that dies makes the task draw its
+report inline.
+"""
+from __future__ import annotations
+
+import concurrent.futures as cf
+import multiprocessing
+import os
+import threading
+
+
+class ReportProcess:
+    """One forked process that writes reach reports on request."""
+
+    def __init__(self):
+        self.pool = cf.ProcessPoolExecutor(max_workers=1, mp_context=multiprocessing.get_context("fork"))
+        self.pool.submit(_warm_up)
+
+    def submit(self, spec, geom) -> cf.Future:
+        """Start writing the report of ``geom``'s reach for task ``spec`` (its outputs must be on disk)."""
+        return self.pool.submit(_write, spec, geom)
+
+    def submit_index(self, path, config_path: str, sha256: str, dem, parts: dict) -> cf.Future:
+        """Start writing the run's index page (see :func:`geoflow.batch.assemble.write_index_page`)."""
+        return self.pool.submit(_write_index, path, config_path, sha256, dem, parts)
+
+    def close(self) -> None:
+        self.pool.shutdown(wait=True, cancel_futures=True)
+
+
+def start(workers: int, scheduler, configs) -> ReportProcess | None:
+    """A report process for an in-process run of ``configs`` that write reports, when it can help."""
+    wanted = any("report" in c.mapping.outputs for c in configs)
+    can_fork = "fork" in multiprocessing.get_all_start_methods() and threading.active_count() == 1
+    if workers != 1 or scheduler or not wanted or not can_fork or (os.cpu_count() or 1) < 2:
+        return None
+    return ReportProcess()
+
+
+def _warm_up() -> None:
+    from ..report import page  # noqa: F401  (imports matplotlib in the helper, not in the run)
+
+
+def _write(spec, geom) -> list:
+    from .tasks import report_in_helper
+    return report_in_helper(spec, geom)
+
+
+def _write_index(path, config_path: str, sha256: str, dem, parts: dict):
+    from .assemble import write_index_page
+    from .tasks import _config
+    return write_index_page(path, _config(config_path, sha256, sha256), dem, parts)
