@@ -3,11 +3,13 @@
 A run in this process (``--workers 1``, the default) uses one core; drawing a report's figures
 (matplotlib, Agg) takes about as long as mapping a small reach. With a second core free, a
 :class:`ReportProcess` forked when the run starts imports matplotlib there (while this process
-validates) and renders each reach's report from the rasters and outlines the task has just
+validates) and draws each reach's report from the rasters and outlines the reach task has just
 written (the helper opens the run's inputs once, for the DEM preview and the other reaches on the
-map). The reach task still waits for its report before it returns, so a reach is recorded
-complete only with its report on disk, exactly as when the report is drawn inline. matplotlib is
-never imported here.
+map), while this process goes on with the next reach. A reach is recorded in the manifest only
+once its report is on disk (reports are drawn in the order reaches finish, so records keep that
+order), exactly as when the report is drawn inline; reaches waiting on a junction start as soon as
+the reach they join is computed. The run's index page is drawn there too. matplotlib is never
+imported here.
 
 Used only where forking is safe (POSIX, no other threads) and at least two CPUs are available;
 otherwise reports are drawn inline by the task. A helper that dies makes the task draw its
@@ -29,7 +31,9 @@ class ReportProcess:
         self.pool.submit(_warm_up)
 
     def submit(self, spec, geom) -> cf.Future:
-        """Start writing the report of ``geom``'s reach for task ``spec`` (its outputs must be on disk)."""
+        """Start writing the report of ``geom``'s reach for task ``spec`` (its outputs must be on disk).
+
+        The future's result is (files written, seconds the helper spent on them)."""
         return self.pool.submit(_write, spec, geom)
 
     def submit_index(self, path, config_path: str, sha256: str, dem, parts: dict) -> cf.Future:
@@ -53,7 +57,7 @@ def _warm_up() -> None:
     from ..report import page  # noqa: F401  (imports matplotlib in the helper, not in the run)
 
 
-def _write(spec, geom) -> list:
+def _write(spec, geom) -> tuple[list, float]:
     from .tasks import report_in_helper
     return report_in_helper(spec, geom)
 

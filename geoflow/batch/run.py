@@ -17,6 +17,7 @@
 """
 from __future__ import annotations
 
+import collections
 import contextlib
 import logging
 import time
@@ -238,13 +239,30 @@ def _compute(plans: list[_Plan], runner, progress: bool) -> None:
             handles[runner.submit(_spec(p, rid))] = (p, rid)
         else:
             after.setdefault((id(p), dep), []).append((p, rid))
-    while handles:
-        h = runner.wait(handles)
-        p, rid = handles.pop(h)
-        _record(p, rid, runner.result(h))
-        for q, dependent in after.pop((id(p), rid), []):
-            handles[runner.submit(_spec(q, dependent))] = (q, dependent)
-        bar.step(f"{p.cfg.run.name}/{rid}: {p.manifest.data['reaches'][rid]['status']}", len(p.todo[rid]))
+    computed: dict = {}               # (plan, reach) -> events computed in this run (for junctions)
+    unrecorded: collections.deque = collections.deque()     # computed, report still being drawn
+    while handles or unrecorded:
+        if handles:
+            h = runner.wait(handles)
+            p, rid = handles.pop(h)
+            info = runner.result(h)
+            computed[(id(p), rid)] = [e for e, u in (info.get("events") or {}).items() if u.get("status") == "complete"]
+            for q, dependent in after.pop((id(p), rid), []):
+                handles[runner.submit(_spec(q, dependent, computed))] = (q, dependent)
+            unrecorded.append((p, rid, info))
+        # record in the order computed; wait for a report only when there is nothing else to do
+        while unrecorded and (not handles or _report_done(unrecorded[0][2])):
+            p, rid, info = unrecorded.popleft()
+            pending = info.pop("report_pending", None)
+            if pending is not None:
+                pending.finish(info)
+            _record(p, rid, info)
+            bar.step(f"{p.cfg.run.name}/{rid}: {p.manifest.data['reaches'][rid]['status']}", len(p.todo[rid]))
+
+
+def _report_done(info: dict) -> bool:
+    pending = info.get("report_pending")
+    return pending is None or pending.future.done()
 
 
 def _log_cases(p: _Plan) -> None:
@@ -259,13 +277,16 @@ def _log_cases(p: _Plan) -> None:
                         case, ", ".join(keep), case)
 
 
-def _spec(p: _Plan, rid: str) -> TaskSpec:
+def _spec(p: _Plan, rid: str, computed: dict | None = None) -> TaskSpec:
+    """The task of one reach; a junction reach gets the events of the reach it joins that this run
+    computed (``computed``, possibly not recorded yet while their report is drawn) or reused."""
     down, _ = p.cfg.boundary.for_reach(rid)
     complete = ()
     if down.type == "junction":
         units = p.manifest.data["units"]
-        complete = tuple(e.name for e in p.cfg.events
-                         if units.get(manifest.unit_key(down.reach, e.name), {}).get("status") == "complete")
+        done = set((computed or {}).get((id(p), down.reach), ()))
+        complete = tuple(e.name for e in p.cfg.events if e.name in done or
+                         units.get(manifest.unit_key(down.reach, e.name), {}).get("status") == "complete")
     return TaskSpec(config_path=str(p.cfg.path), config_sha256=p.cfg.sha256, identity=p.identity,
                     fingerprints=p.fingerprints, reach_id=rid, events=tuple(p.todo[rid]), junction_events=complete)
 

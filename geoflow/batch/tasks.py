@@ -135,9 +135,11 @@ def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float)
             info["files"].append(relative_name(cfg.run.output_dir, outputs.write_rating_csv(
                 path, ratings.rating_rows(cfg, geom, factors))))
     # the report is drawn from the rasters and outlines just written: after the maps
-    pending = REPORTS.submit(spec, geom) if REPORTS is not None and "report" in cfg.mapping.outputs else None
-    with timing.stage("report"):
-        info["files"] += [relative_name(cfg.run.output_dir, f) for f in _report_files(cfg, inputs, geom, pending)]
+    if REPORTS is not None and "report" in cfg.mapping.outputs:
+        info["report_pending"] = PendingReport(REPORTS.submit(spec, geom), spec, geom)
+    else:
+        with timing.stage("report"):
+            info["files"] += [relative_name(cfg.run.output_dir, f) for f in write_reach_report(cfg, inputs, geom)]
     info["timings_s"] = {k: round(v, 4) for k, v in timing.since(before).items()}
     info["timings_s"]["total"] = round(time.perf_counter() - t0, 4)
     failed = [e for e, u in info["events"].items() if u["status"] != "complete"]
@@ -296,21 +298,40 @@ def read_profile_parts(cfg: Config, reach_id: str, events: list[str] | None = No
     return pd.concat(frames, ignore_index=True) if frames else None
 
 
-def _report_files(cfg: Config, inputs, geom, pending) -> list[Path]:
-    """The reach's report: from the report process (``pending``), or drawn here."""
-    if pending is not None:
+@dataclass
+class PendingReport:
+    """A reach report being drawn by the report process (in-process runs; see :mod:`.reports`)."""
+
+    future: object
+    spec: TaskSpec
+    geom: ReachGeometry
+
+    def finish(self, info: dict) -> None:
+        """Wait for the report and complete the reach's ``info`` with it (files, time, or the error).
+
+        A report process that died leaves the report to be drawn here.
+        """
+        cfg = _config(self.spec.config_path, self.spec.config_sha256, self.spec.identity)
         try:
-            return pending.result()
-        except cf.process.BrokenProcessPool:
-            pass                                   # the helper died: draw it here
-    return write_reach_report(cfg, inputs, geom)
+            try:
+                files, seconds = self.future.result()
+                info["timings_s"]["report_process"] = round(seconds, 4)
+            except cf.process.BrokenProcessPool:
+                inputs = _inputs(self.spec.config_path, self.spec.config_sha256, self.spec.identity)
+                files = write_reach_report(cfg, inputs, self.geom)
+        except GeoflowError as exc:
+            info["status"], info["error"] = "failed", str(exc)
+            return
+        info["files"] = list(info.get("files") or []) + [relative_name(cfg.run.output_dir, f) for f in files]
 
 
-def report_in_helper(spec: TaskSpec, geom: ReachGeometry) -> list[Path]:
-    """What the report process runs for one reach (it opens the task's inputs itself, once)."""
+def report_in_helper(spec: TaskSpec, geom: ReachGeometry) -> tuple[list[Path], float]:
+    """What the report process runs for one reach (it opens the task's inputs itself, once): the
+    report's files and the seconds spent."""
+    t0 = time.perf_counter()
     cfg = _config(spec.config_path, spec.config_sha256, spec.identity)
     inputs = _inputs(spec.config_path, spec.config_sha256, spec.identity)
-    return write_reach_report(cfg, inputs, geom)
+    return write_reach_report(cfg, inputs, geom), time.perf_counter() - t0
 
 
 def write_reach_report(cfg: Config, inputs, geom) -> list[Path]:

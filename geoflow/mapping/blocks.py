@@ -55,18 +55,26 @@ class Surface:
         self.bounds = shapely.bounds(self.quads) if quads else np.zeros((0, 4))
         self.pieces = _pieces([s.line for s in sections])   # (N, P, 4): x0, y0, x1, y1 of each straight piece
         self.lowering = ChannelLowering.from_sections(sections, centreline)
+        if self.lowering is not None:       # the most each section lowers the ground (0 outside its channel)
+            self.most_lowered = np.maximum(self.lowering.lowering.max(axis=1), 0.0)
 
     def touching(self, left: float, bottom: float, right: float, top: float) -> np.ndarray:
         """Indices (into ``quads``) of the quads whose bounds meet the box."""
         b = self.bounds
         return np.flatnonzero((b[:, 0] <= right) & (b[:, 2] >= left) & (b[:, 1] <= top) & (b[:, 3] >= bottom))
 
-    def interpolate(self, grid_transform: Affine, row_off: int, col_off: int, shape_rc, sel=None) -> np.ndarray:
+    def interpolate(self, grid_transform: Affine, row_off: int, col_off: int, shape_rc, sel=None,
+                    ground: np.ndarray | None = None) -> np.ndarray:
         """(k, rows, cols) values on a block of the grid (k + 1 with the lowering row); NaN outside every quad.
 
         Cell (r, c) of the block has its centre at grid cell (row_off + r, col_off + c), so
         the numbers do not depend on how the grid is cut into blocks. A cell inside several
         quads takes the lowest index (the most upstream pair).
+
+        With ``ground`` (rows, cols; the DEM), only cells that can be wet are computed: the WSE in
+        quad i is a weighted mean of wse_i and wse_i+1, and the channel lowering a weighted mean of
+        the two sections' lowerings, so where the DEM is at or above the larger WSE plus the larger
+        lowering of the two (or unknown) the cell is dry whatever the weights, and is left NaN.
         """
         rows = self.values.shape[0] + (self.lowering is not None)
         out = np.full((rows,) + tuple(shape_rc), np.nan)
@@ -77,6 +85,12 @@ class Surface:
         burn = [(self.quads[j], int(self.index[j])) for j in sel[::-1]]     # later shapes win
         label = rasterize(burn, out_shape=shape_rc, transform=transform, fill=-1, dtype="int32").ravel()
         cells = np.flatnonzero(label >= 0)
+        if ground is not None:
+            idx = label[cells]
+            top = np.maximum(self.values[0, idx], self.values[0, idx + 1])
+            if self.lowering is not None:
+                top = top + np.maximum(self.most_lowered[idx], self.most_lowered[idx + 1])
+            cells = cells[np.asarray(ground).ravel()[cells] < top]          # NaN ground: False, dry
         flat = out.reshape(out.shape[0], -1)
         for start in range(0, cells.size, CHUNK_CELLS):
             part = cells[start:start + CHUNK_CELLS]
@@ -200,7 +214,7 @@ def compute_block(ctx, grid: Grid, win: Window) -> BlockData | None:
     if sel.size == 0:
         return None
     ground = grid.read_ground(ctx.dem, win)
-    vals = ctx.surface.interpolate(grid.transform, int(win.row_off), int(win.col_off), shape_rc, sel)
+    vals = ctx.surface.interpolate(grid.transform, int(win.row_off), int(win.col_off), shape_rc, sel, ground=ground)
     if ctx.surface.lowering is not None:
         ground = ground - np.nan_to_num(vals[-1])       # the channel the sections use, below the DEM
     with np.errstate(invalid="ignore"):
