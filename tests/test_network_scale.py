@@ -159,3 +159,44 @@ def test_reports_from_the_report_process_equal_inline_ones(tmp_path, monkeypatch
     again = run(cfg_path)
     assert not again.failed and (again.output_dir / "report" / "r1.html").is_file()
     assert (again.output_dir / "report" / "index.html").is_file()
+
+
+def test_points_along_a_line_equal_shapely_exactly():
+    # Reference: shapely.line_interpolate_point (GEOS), bit for bit, on random polylines with
+    # repeated vertices, points at vertices, at both ends and beyond the end.
+    import shapely
+
+    from geoflow.sections.common import points_along
+    rng = np.random.default_rng(5)
+    for k in range(60):
+        n = int(rng.integers(2, 80))
+        xy = np.cumsum(rng.normal(size=(n, 2)) * rng.uniform(0.1, 50.0), axis=0) + [3e5, 5.2e6]
+        if k % 3 == 0 and n > 3:
+            xy[2] = xy[1]
+        line = shapely.LineString(xy)
+        at_vertices = np.cumsum(np.hypot(*np.diff(xy, axis=0).T))[: min(5, n - 1)]
+        d = np.concatenate([rng.uniform(0.0, line.length, 40), [0.0, line.length, line.length + 3.0], at_vertices])
+        ref = shapely.get_coordinates(shapely.line_interpolate_point(line, d))
+        np.testing.assert_array_equal(points_along(line, d), ref)
+
+
+def test_in_place_distances_to_dog_leg_sections_equal_the_plain_expression():
+    # Reference: point_polyline_distance (the plain numpy expression, checked against shapely in
+    # tests/test_mapping.py), bit for bit, on sections of one to three straight pieces.
+    import shapely
+
+    from geoflow.mapping.blocks import Surface, point_polyline_distance
+    from geoflow.records import Section
+    rng = np.random.default_rng(11)
+    secs = []
+    for k in range(12):
+        legs = 1 + k % 3
+        xy = np.cumsum(rng.normal(size=(legs + 1, 2)) * 40.0, axis=0) + [k * 30.0, 0.0]
+        line = shapely.LineString(xy)
+        st = np.linspace(0.0, line.length, 5)
+        secs.append(Section(reach_id="r", section_id=k, chainage=k * 30.0, line=line, station=st,
+                            elevation=np.zeros(5)))
+    surface = Surface(secs, np.linspace(10.0, 9.0, 12))
+    x, y = rng.uniform(-50, 400, 5000), rng.uniform(-150, 150, 5000)
+    which = rng.integers(0, 12, 5000)
+    np.testing.assert_array_equal(surface._distance_to(x, y, which), point_polyline_distance(x, y, surface.pieces[which]))

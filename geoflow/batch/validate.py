@@ -35,6 +35,7 @@ from ..errors import GeoflowError, GeometryError, InputDataError
 from ..naming import safe_name
 from ..records import ReachGeometry
 from ..sections.channel import describe_channel
+from ..sections.common import points_along
 from . import reach, structures
 from .inputs import Inputs, open_inputs
 from .layout import check_inputs_not_outputs
@@ -170,7 +171,7 @@ def _structure_problems(cfg: Config, geom: ReachGeometry) -> list[str]:
 def _ground_under(line, dem, max_points: int = 2000) -> np.ndarray:
     """DEM ground (m, NaN where nodata) at points about one cell apart along ``line``."""
     count = int(min(max(line.length / dem.cell_size, 2), max_points))
-    pts = shapely.get_coordinates(shapely.line_interpolate_point(line, np.linspace(0, line.length, count)))
+    pts = points_along(line, np.linspace(0, line.length, count))
     return dem.sample(pts[:, 0], pts[:, 1])
 
 

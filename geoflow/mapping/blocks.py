@@ -54,6 +54,7 @@ class Surface:
         self.index = np.array(index, dtype=np.int64)
         self.bounds = shapely.bounds(self.quads) if quads else np.zeros((0, 4))
         self.pieces = _pieces([s.line for s in sections])   # (N, P, 4): x0, y0, x1, y1 of each straight piece
+        self._piece_columns = [_segment_columns(self.pieces[:, p]) for p in range(self.pieces.shape[1])]
         self.lowering = ChannelLowering.from_sections(sections, centreline)
         if self.lowering is not None:       # the most each section lowers the ground (0 outside its channel)
             self.most_lowered = np.maximum(self.lowering.lowering.max(axis=1), 0.0)
@@ -103,14 +104,21 @@ class Surface:
         rows, cols = np.divmod(part, ncols)
         x = gt.c + gt.a * (cols + col_off + 0.5)
         y = gt.f + gt.e * (rows + row_off + 0.5)
-        d_up = point_polyline_distance(x, y, self.pieces[idx])
-        d_dn = point_polyline_distance(x, y, self.pieces[idx + 1])
+        d_up = self._distance_to(x, y, idx)
+        d_dn = self._distance_to(x, y, idx + 1)
         total = d_up + d_dn
         w_up = np.divide(d_dn, total, out=np.ones_like(total), where=total > 0)
         vals = w_up * self.values[:, idx] + (1.0 - w_up) * self.values[:, idx + 1]
         if self.lowering is None:
             return vals
         return np.vstack([vals, self.lowering.at(x, y, idx, w_up)[None, :]])
+
+
+    def _distance_to(self, x: np.ndarray, y: np.ndarray, which: np.ndarray) -> np.ndarray:
+        """Distance from (x, y) to the polyline of section ``which`` (row by row), as
+        :func:`point_polyline_distance` on ``self.pieces[which]``, computed in place."""
+        d = [_distance(x, y, *(c.take(which) for c in cols)) for cols in self._piece_columns]
+        return d[0] if len(d) == 1 else np.minimum.reduce(d)
 
 
 def polygonal(geom):
@@ -141,12 +149,39 @@ def point_polyline_distance(x: np.ndarray, y: np.ndarray, pieces: np.ndarray) ->
 
 def point_segment_distance(x: np.ndarray, y: np.ndarray, seg: np.ndarray) -> np.ndarray:
     """Euclidean distance from points (x, y) to segments ``seg[:, [x0, y0, x1, y1]]``, row by row."""
-    x0, y0, x1, y1 = seg[:, 0], seg[:, 1], seg[:, 2], seg[:, 3]
-    dx, dy = x1 - x0, y1 - y0
-    len2 = dx * dx + dy * dy
-    t = np.divide((x - x0) * dx + (y - y0) * dy, len2, out=np.zeros_like(len2), where=len2 > 0)
-    t = np.clip(t, 0.0, 1.0)
-    return np.hypot(x - (x0 + t * dx), y - (y0 + t * dy))
+    return _distance(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64),
+                     *_segment_columns(np.asarray(seg, dtype=np.float64)))
+
+
+def _segment_columns(seg: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Contiguous x0, y0, dx, dy and squared length of segments ``seg[:, [x0, y0, x1, y1]]``."""
+    x0, y0 = np.ascontiguousarray(seg[:, 0]), np.ascontiguousarray(seg[:, 1])
+    dx, dy = seg[:, 2] - x0, seg[:, 3] - y0
+    return x0, y0, dx, dy, dx * dx + dy * dy
+
+
+def _distance(x, y, x0, y0, dx, dy, len2) -> np.ndarray:
+    """Distance from (x, y) to the segments (x0, y0) + t (dx, dy), 0 <= t <= 1, row by row.
+
+    t = ((x - x0) dx + (y - y0) dy) / len2 clipped to [0, 1] (0 for a zero-length segment); the
+    distance is |(x, y) - ((x0, y0) + t (dx, dy))|. Computed in place on the (fresh) ``dx`` and
+    ``dy`` rows: the same operations, in the same order, as the plain expression, without its
+    temporaries.
+    """
+    t = x - x0
+    t *= dx
+    u = y - y0
+    u *= dy
+    t += u
+    np.divide(t, len2, out=t, where=len2 > 0)
+    t[~(len2 > 0)] = 0.0
+    np.clip(t, 0.0, 1.0, out=t)
+    px, py = dx * t, dy * t
+    px += x0
+    py += y0
+    np.subtract(x, px, out=px)
+    np.subtract(y, py, out=py)
+    return np.hypot(px, py, out=px)
 
 
 def block_bounds(grid_transform: Affine, row_off: int, col_off: int, shape_rc) -> tuple[float, float, float, float]:

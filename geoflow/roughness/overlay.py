@@ -28,6 +28,7 @@ import shapely
 from ..errors import RoughnessError
 from ..records import CHANNEL, LEFT_FLOODPLAIN, RIGHT_FLOODPLAIN, ReachGeometry, Section
 from ..sections.banks import detect_banks
+from ..sections.common import points_along
 from ..sections.lengths import floodplain_lengths
 
 GAP_CLASS = ""   # land-cover name given to segments in a gap filled with default_n
@@ -171,16 +172,17 @@ def _n_value(name, value) -> float:
 def _segment_midpoints(sections) -> tuple[np.ndarray, np.ndarray]:
     """(M, 2) mid-points of all station segments of all sections (along polylines too), and the owner section."""
     counts = [sec.station.size - 1 for sec in sections]
-    lines = np.repeat(np.asarray([sec.line for sec in sections], dtype=object), counts)
-    scale = np.concatenate([np.full(c, sec.line.length / sec.station[-1]) for c, sec in zip(counts, sections)])
-    mid = np.concatenate([0.5 * (sec.station[:-1] + sec.station[1:]) for sec in sections])
-    xy = shapely.get_coordinates(shapely.line_interpolate_point(lines, mid * scale))
+    if not sections:
+        return np.zeros((0, 2)), np.zeros(0, dtype=np.int64)
+    xy = np.concatenate([points_along(sec.line, 0.5 * (sec.station[:-1] + sec.station[1:])
+                                      * np.full(c, sec.line.length / sec.station[-1]))
+                         for c, sec in zip(counts, sections)])
     return xy, np.repeat(np.arange(len(sections)), counts)
 
 
 def centre_stations(geom: ReachGeometry) -> np.ndarray:
     """Station (m from the left end) where each section meets the centreline: its chainage point."""
-    pts = shapely.line_interpolate_point(geom.centreline, [s.chainage for s in geom.sections])
+    pts = shapely.points(points_along(geom.centreline, [s.chainage for s in geom.sections]))
     lines = np.asarray([s.line for s in geom.sections], dtype=object)
     frac = shapely.line_locate_point(lines, pts) / shapely.length(lines)
     return frac * np.array([s.station[-1] for s in geom.sections])
@@ -189,25 +191,45 @@ def centre_stations(geom: ReachGeometry) -> np.ndarray:
 def _classes_at(cover, xy: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
     """Class name at each point (first polygon in layer order), a has-cover mask, overlap count.
 
-    One bulk query of the polygons near the points against an STRtree of the points: shapely
-    prepares each query polygon once, so a point-in-polygon test costs O(log vertices) and the
-    whole overlay grows linearly with the number of points (querying points against a tree of
-    polygons would test each point against the full vertex list of its polygon).
+    Each polygon near the points is prepared once and tested (``shapely.intersects_xy``, so a
+    point on an edge counts) against the points inside its box only, found from the points
+    sorted by x: a test costs O(log vertices) and the whole overlay grows linearly with the
+    number of points (testing each point against the full vertex list of its polygon, as a
+    query of points against a tree of polygons does, grew with the square of reach length).
     """
     classes = np.full(len(xy), GAP_CLASS, dtype=object)
     has = np.zeros(len(xy), dtype=bool)
     if len(xy) == 0:
         return classes.astype(str), has, 0
-    points = shapely.points(xy)
-    near = cover.tree.query(shapely.box(*xy.min(axis=0), *xy.max(axis=0)))
-    hit_poly, hit_pt = shapely.STRtree(points).query(np.asarray(cover.geometries)[near], predicate="intersects")
-    hit_poly = near[hit_poly]
+    hit_poly, hit_pt = _points_in_polygons(cover, xy)
     order = np.lexsort((hit_poly, hit_pt))
     hit_pt, hit_poly = hit_pt[order], hit_poly[order]
     first_pt, first_idx, counts = np.unique(hit_pt, return_index=True, return_counts=True)
     classes[first_pt] = np.asarray(cover.classes)[hit_poly[first_idx]]
     has[first_pt] = True
     return classes.astype(str), has, int(np.sum(counts > 1))
+
+
+def _points_in_polygons(cover, xy: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(polygon index, point index) of every point that intersects a land-cover polygon."""
+    near = np.sort(cover.tree.query(shapely.box(*xy.min(axis=0), *xy.max(axis=0))))
+    by_x = np.argsort(xy[:, 0], kind="stable")
+    xs, ys = xy[by_x, 0], xy[by_x, 1]
+    polys = np.asarray(cover.geometries)[near]
+    bounds = shapely.bounds(polys)
+    hit_poly, hit_pt = [], []
+    for k, poly, (x0, y0, x1, y1) in zip(near, polys, bounds):
+        lo, hi = np.searchsorted(xs, x0, side="left"), np.searchsorted(xs, x1, side="right")
+        cand = lo + np.flatnonzero((ys[lo:hi] >= y0) & (ys[lo:hi] <= y1))
+        if cand.size == 0:
+            continue
+        shapely.prepare(poly)
+        inside = cand[shapely.intersects_xy(poly, xs[cand], ys[cand])]
+        hit_poly.append(np.full(inside.size, k))
+        hit_pt.append(by_x[inside])
+    if not hit_poly:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    return np.concatenate(hit_poly), np.concatenate(hit_pt)
 
 
 def _n_for(rid, cls, has_cover, owner, xy, sections, cover, table, default_n) -> tuple[np.ndarray, list[str]]:

@@ -80,3 +80,32 @@ def sample_many(dem, xs: list[np.ndarray], ys: list[np.ndarray]) -> list[np.ndar
         z = dem.sample(allx, ally)
         return np.split(z, np.cumsum([x.size for x in xs])[:-1])
     return [dem.sample(x, y) for x, y in zip(xs, ys)]
+
+
+def points_along(line: LineString, distances) -> np.ndarray:
+    """(n, 2) points at ``distances`` (m from the start, clipped to the line) along a LineString.
+
+    The same arithmetic as ``shapely.line_interpolate_point`` (GEOS walks the segments adding
+    their lengths, then p = p0 + f (p1 - p0) on the segment reached), but with the cumulative
+    lengths found once and ``searchsorted``: O(vertices + points) instead of O(vertices x
+    points), which matters for one point per section on a long centreline.
+    """
+    d = np.clip(np.asarray(distances, dtype=np.float64).ravel(), 0.0, None)
+    xy = shapely.get_coordinates(line)
+    if len(xy) < 2:
+        return np.repeat(xy[:1], d.size, axis=0)
+    dx, dy = np.diff(xy[:, 0]), np.diff(xy[:, 1])
+    seg = np.sqrt(dx * dx + dy * dy)
+    start = np.concatenate(([0.0], np.cumsum(seg)))            # length before each vertex
+    k = np.searchsorted(start, d, side="right") - 1             # last vertex at or before d ...
+    k = np.clip(k, 0, len(seg) - 1)
+    while True:                                                  # ... on a segment of positive length
+        zero = (seg[k] == 0) & (k < len(seg) - 1)
+        if not zero.any():
+            break
+        k[zero] += 1
+    beyond = d >= start[-1]
+    frac = np.divide(d - start[k], seg[k], out=np.ones_like(d), where=seg[k] > 0)
+    out = np.column_stack((xy[k, 0] + frac * (xy[k + 1, 0] - xy[k, 0]), xy[k, 1] + frac * (xy[k + 1, 1] - xy[k, 1])))
+    out[beyond] = xy[-1]
+    return out

@@ -25,6 +25,8 @@ from dataclasses import dataclass, replace
 import numpy as np
 import shapely
 
+from .common import points_along
+
 STRAIGHT_DEG = 0.5            # bends turning less than this are straightened
 _SIGN = np.array([1.0, -1.0])  # side 0 goes along +normal (left), side 1 along -normal (right)
 
@@ -124,7 +126,7 @@ def across_valley_lengths(sides: Sides, valley, half_width: float) -> np.ndarray
     lead = np.where(bent, sides.bend, 0.0)
     start = sides.centre[:, None, :] + lead[..., None] * sides.first
     u, vn = valley.frame(start.reshape(-1, 2))
-    foot = shapely.get_coordinates(shapely.line_interpolate_point(valley.axis, u))
+    foot = points_along(valley.axis, u)
     offset = np.einsum("pk,pk->p", start.reshape(-1, 2) - foot, vn).reshape(bent.shape)
     rate = np.einsum("nsk,nsk->ns", sides.second, vn.reshape(sides.second.shape))   # d(offset)/d(length)
     outward = np.where(rate >= 0, 1.0, -1.0)

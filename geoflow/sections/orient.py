@@ -11,6 +11,8 @@ import numpy as np
 import shapely
 from shapely.geometry import LineString
 
+from .common import points_along
+
 
 def orient_centreline(reach_id: str, line: LineString, dem) -> tuple[LineString, str | None]:
     """Check the drawn direction of a centreline against the DEM; reverse it if drawn upstream.
@@ -49,9 +51,9 @@ def end_bed_levels(line: LineString, dem, fraction: float = 0.1, half_cells: int
     offs = np.linspace(-half_cells * cell, half_cells * cell, 2 * half_cells + 1)
     out = []
     for s in (np.linspace(0.0, span, k), np.linspace(length - span, length, k)):
-        c = shapely.get_coordinates(shapely.line_interpolate_point(line, s))
-        a = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(s - cell, 0, length)))
-        b = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(s + cell, 0, length)))
+        c = points_along(line, s)
+        a = points_along(line, np.clip(s - cell, 0, length))
+        b = points_along(line, np.clip(s + cell, 0, length))
         t = b - a
         t /= np.maximum(np.hypot(t[:, 0], t[:, 1]), 1e-12)[:, None]
         x = c[:, 0, None] - t[:, 1, None] * offs[None, :]

@@ -12,11 +12,11 @@ import dataclasses
 import math
 
 import numpy as np
-import shapely
 from shapely.geometry import LineString
 
 from ..errors import GeometryError
 from ..records import Section
+from .common import points_along
 
 STATION_TOLERANCE = 1e-4     # m: a new station this close to an existing one is not added
 
@@ -151,9 +151,9 @@ def frame(rid: str, line: LineString, chain: np.ndarray, smoothing: float, h_min
     length = float(line.length)
     at = chain if chord_at is None else np.asarray(chord_at, dtype=float)
     h = np.clip(np.minimum(at, length - at), h_min, smoothing)
-    a = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(at - h, 0.0, length)))
-    b = shapely.get_coordinates(shapely.line_interpolate_point(line, np.clip(at + h, 0.0, length)))
-    centre = shapely.get_coordinates(shapely.line_interpolate_point(line, chain))
+    a = points_along(line, np.clip(at - h, 0.0, length))
+    b = points_along(line, np.clip(at + h, 0.0, length))
+    centre = points_along(line, chain)
     d = b - a
     norm = np.hypot(d[:, 0], d[:, 1])
     if np.any(norm <= 1e-9 * max(length, 1.0)):

@@ -24,7 +24,7 @@ import numpy as np
 import shapely
 
 from ..records import CHANNEL, ReachGeometry
-from .common import sample_many
+from .common import points_along, sample_many
 
 BLOCK_M = 0.5             # a ridge this much higher than both ends of a flow path blocks it
 PROBE_STEPS = 2           # flow paths start every this many sample steps along a section
@@ -71,8 +71,8 @@ def _direction(geom: ReachGeometry, xy: np.ndarray) -> np.ndarray:
     length = float(ref.length)
     u = shapely.line_locate_point(ref, shapely.points(xy))
     h = max(1.0, 0.005 * length)
-    a = shapely.get_coordinates(shapely.line_interpolate_point(ref, np.clip(u - h, 0, length)))
-    b = shapely.get_coordinates(shapely.line_interpolate_point(ref, np.clip(u + h, 0, length)))
+    a = points_along(ref, np.clip(u - h, 0, length))
+    b = points_along(ref, np.clip(u + h, 0, length))
     d = b - a
     return d / np.maximum(np.hypot(d[:, 0], d[:, 1]), 1e-12)[:, None]
 

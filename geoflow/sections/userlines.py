@@ -24,7 +24,7 @@ from shapely.geometry import LineString
 
 from ..errors import GeometryError
 from ..records import ReachGeometry
-from .common import build_sections, check_inside, check_positive, sample_many
+from .common import build_sections, check_inside, check_positive, points_along, sample_many
 
 
 def sections_from_lines(reach_id: str, centreline: LineString, lines, dem, sample_step: float | None = None,
@@ -86,8 +86,7 @@ def _left_to_right(centreline: LineString, geoms: np.ndarray, cross: np.ndarray,
     """Lines reversed where they run right -> left looking downstream (judged at the crossing)."""
     length = float(centreline.length)
     dc = np.minimum(0.5, 0.25 * length)
-    t = (shapely.get_coordinates(shapely.line_interpolate_point(centreline, np.clip(chain + dc, 0, length)))
-         - shapely.get_coordinates(shapely.line_interpolate_point(centreline, np.clip(chain - dc, 0, length))))
+    t = points_along(centreline, np.clip(chain + dc, 0, length)) - points_along(centreline, np.clip(chain - dc, 0, length))
     at = shapely.line_locate_point(geoms, cross)
     lg = shapely.length(geoms)
     dl = np.minimum.reduce([np.full(at.shape, 0.5), 0.5 * at, 0.5 * (lg - at)])

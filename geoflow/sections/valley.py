@@ -36,6 +36,8 @@ import numpy as np
 import shapely
 from shapely.geometry import LineString
 
+from .common import points_along
+
 HYSTERESIS_DEG = 8.0          # a heading extreme counts once the line has turned back by this much
 MAX_SAMPLES = 20_000          # resampling points along the centreline (at most)
 
@@ -58,8 +60,8 @@ class Valley:
         u = shapely.line_locate_point(self.axis, shapely.points(points))
         length = float(self.axis.length)
         h = max(0.05 * self.sigma, 1e-3 * length) if h is None else float(h)
-        a = shapely.get_coordinates(shapely.line_interpolate_point(self.axis, np.clip(u - h, 0.0, length)))
-        b = shapely.get_coordinates(shapely.line_interpolate_point(self.axis, np.clip(u + h, 0.0, length)))
+        a = points_along(self.axis, np.clip(u - h, 0.0, length))
+        b = points_along(self.axis, np.clip(u + h, 0.0, length))
         t = b - a
         t /= np.maximum(np.hypot(t[:, 0], t[:, 1]), 1e-12)[:, None]
         return u, np.column_stack((-t[:, 1], t[:, 0]))
@@ -71,7 +73,7 @@ def valley_of(centreline: LineString, width: float, step: float | None = None) -
     length = float(line.length)
     ds = max(length / MAX_SAMPLES, min(1.0, length / 50.0)) if step is None else float(step)
     count = max(int(math.ceil(length / ds)), 4)
-    pts = shapely.get_coordinates(shapely.line_interpolate_point(line, np.linspace(0.0, length, count + 1)))
+    pts = points_along(line, np.linspace(0.0, length, count + 1))
     ds = length / count
     half = meander_half_wavelength(pts, ds)
     sigma = min(max(0.25 * float(width), half or 0.0), length / 3.0)
