@@ -6,8 +6,8 @@ in metres of the DEM's vertical datum, with NaN where the DEM has no data.
 A :class:`Dem` holds no open handle (it pickles to Dask workers). ``with dem.kept_open():``
 keeps one dataset open for the calling thread of this process while the block runs, so the
 hundreds of window reads of a reach task share one handle and GDAL's block cache (opening the
-file costs about as much as reading a small window); outside such a block each read opens and
-closes the file.
+file costs about as much as reading a small window), with the cache held to
+``KEPT_OPEN_CACHE_MB``; outside such a block each read opens and closes the file.
 """
 from __future__ import annotations
 
@@ -29,6 +29,7 @@ from . import timing
 from .errors import InputDataError
 
 _LOCAL = threading.local()      # per thread: {path: [dataset, depth]} of DEMs kept open
+KEPT_OPEN_CACHE_MB = 16         # GDAL block cache while a DEM is kept open (bounds memory on long reaches)
 
 VERTICAL_UNITS = {"m": 1.0, "metre": 1.0, "meter": 1.0, "ft": 0.3048, "foot": 0.3048, "us_ft": 1200.0 / 3937.0}
 
@@ -82,7 +83,11 @@ class Dem:
         entry = handles.setdefault(key, [None, 0])
         entry[1] += 1
         try:
-            yield self
+            if entry[1] == 1:       # GDAL's block cache would otherwise keep every DEM tile read
+                with rasterio.Env(GDAL_CACHEMAX=KEPT_OPEN_CACHE_MB * 1024 * 1024):
+                    yield self
+            else:
+                yield self
         finally:
             entry[1] -= 1
             if entry[1] == 0:

@@ -126,9 +126,11 @@ def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float)
         profiles = {case: reach.solve_reach(cfg, geom, todo, None if junction is None else junction[case],
                                             factors=combine(factors, case_factors(cfg.roughness.classes, case)))
                     for case in cfg.roughness.all_cases()}
+    release_memory()                    # the section tables are gone: give their pages back before mapping
     for ev in todo:
         info["events"][ev.name] = _compute_event(cfg, inputs, geom, {c: p[ev.name] for c, p in profiles.items()},
                                                  ev, factors)
+        release_memory()
     if cfg.rating_curves is not None:
         with timing.stage("rating_curves"):
             path = part_paths(cfg.run.output_dir, safe_name(rid))["ratings"]
@@ -155,6 +157,26 @@ def _calibrate(cfg: Config, geom, marks, junction: dict | None, info: dict) -> d
     path = part_paths(cfg.run.output_dir, safe_name(geom.reach_id))["calibration"]
     info["files"].append(relative_name(cfg.run.output_dir, outputs.write_calibration_csv(path, cal.rows)))
     return cal.factors
+def release_memory() -> None:
+    """Return freed heap pages to the operating system (glibc ``malloc_trim``; elsewhere nothing).
+
+    After a stage frees large arrays (a long reach's section tables are a few hundred MB),
+    glibc keeps the pages for reuse, so the next stage's peak would stack on top of this one's;
+    trimming makes the peak of a run the largest stage, not the sum.
+    """
+    trim = _malloc_trim()
+    if trim is not None:
+        trim(0)
+
+
+@functools.lru_cache(maxsize=1)
+def _malloc_trim():
+    import ctypes
+    import ctypes.util
+    try:
+        return ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6").malloc_trim
+    except (OSError, AttributeError):
+        return None
 
 
 def _junction_wse(cfg: Config, inputs, geom, events, complete: tuple[str, ...]) -> dict | None:

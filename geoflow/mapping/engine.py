@@ -73,7 +73,7 @@ __all__ = ["ReachMap", "MapSummary", "VelocityInputs", "map_reach", "write_reach
 
 PAD_CELLS = 3
 MAP_KINDS = ("wse", "depth", "velocity")
-GDAL_CACHE_MB = 96            # GDAL block cache while writing block-wise (bounds memory)
+GDAL_CACHE_MB = 48            # GDAL block cache while writing block-wise (bounds memory)
 _EIGHT = np.ones((3, 3), dtype=bool)
 
 

@@ -67,6 +67,7 @@ class _Ledger:
     pockets: dict = field(default_factory=dict)    # (bi, bj) -> (rows, cols, ids) of small pending ids
     pieces: list = field(default_factory=list)
     piece_ids: list = field(default_factory=list)
+    finished: list = field(default_factory=list)   # outline parts of pieces off every block line, final
 
 
 def _record(ledger: _Ledger, key, data: BlockData, inner: tuple) -> np.ndarray:
@@ -183,6 +184,7 @@ def run_blocks(ctx, grid: Grid, sink) -> EngineResult:
             continue
         inner = (bi > 0, win.row_off + win.height < grid.shape[0], bj > 0, win.col_off + win.width < grid.shape[1])
         sink.write(block_layers(data, _record(ledger, (bi, bj), data, inner)), win)
+        _finish_inner_pieces(ledger, grid)
     keep = join_labels(ledger)
     _patch(ctx, grid, sink, ledger, keep)
     ids = np.concatenate(ledger.pend_ids + [np.zeros(0, dtype=np.int64)])
@@ -193,7 +195,22 @@ def run_blocks(ctx, grid: Grid, sink) -> EngineResult:
     pieces = np.concatenate(ledger.pieces + [np.zeros(0, dtype=object)])
     pieces = pieces[keep[np.concatenate(ledger.piece_ids + [np.zeros(0, dtype=np.int64)])]]
     return EngineResult(float(cells) * abs(grid.transform.a * grid.transform.e), max_depth,
-                        outline(pieces, grid.transform, grid.block))
+                        outline(pieces, grid.transform, grid.block, finished=ledger.finished))
+
+
+def _finish_inner_pieces(ledger: _Ledger, grid: Grid) -> None:
+    """Outline now the new pieces of seeded ids (kept whatever the join finds) that touch no block
+    line; pieces on a block line wait for the merge, those of pending ids for the join. The same
+    outline parts (some in another order), and memory holds simplified polygons instead of every
+    pixel corner of a long reach's flood."""
+    if not ledger.pieces or len(ledger.finished) == len(ledger.pieces):
+        return
+    pieces, ids = ledger.pieces[-1], ledger.piece_ids[-1]
+    cell_area = abs(grid.transform.a * grid.transform.e)
+    ready = _rings_op(np.asarray(pieces, dtype=object), MIN_HOLE_CELLS * cell_area, None)
+    now = ~_on_block_line(ready, grid.transform, grid.block) & np.isin(ids, ledger.seeded[-1])
+    ledger.finished.append(final_parts(ready[now], grid.transform))
+    ledger.pieces[-1], ledger.piece_ids[-1] = pieces[~now], ids[~now]
 
 
 def _patch(ctx, grid: Grid, sink, ledger: _Ledger, keep: np.ndarray) -> None:
@@ -217,27 +234,39 @@ def _patch(ctx, grid: Grid, sink, ledger: _Ledger, keep: np.ndarray) -> None:
         sink.clear(Window(block.col_off + c0, block.row_off + r0, mask.shape[1], mask.shape[0]), mask)
 
 
-def outline(pieces: list, transform: Affine, block: int | None = None) -> list:
+def outline(pieces: list, transform: Affine, block: int | None = None, finished: list | None = None) -> list:
     """Polygons of the union of pixel pieces (see module docstring), valid, no parts under
     ``MIN_OUTLINE_PART_CELLS`` cells.
 
     ``pieces`` are valid polygons whose vertices lie on cell corners (4-connected
     polygonisation); with ``block`` only pieces on an inner block line are merged.
     Holes of at most ``MIN_HOLE_CELLS`` cells are filled (the rasters keep them).
+    ``finished``: arrays of parts already outlined (:func:`final_parts`) of pieces on no block
+    line; they come first, as they would if passed among ``pieces``.
     """
+    done = list(finished or [])
     if len(pieces) == 0:
-        return []
+        return list(np.concatenate(done)) if done else []
     cell_area = abs(transform.a * transform.e)
     arr = _rings_op(np.asarray(pieces, dtype=object), MIN_HOLE_CELLS * cell_area, None)
     seam = _on_block_line(arr, transform, block)
     polys = np.concatenate([arr[~seam], _merge(arr[seam])])
+    return list(np.concatenate(done + [final_parts(polys, transform)]))
+
+
+def final_parts(polys: np.ndarray, transform: Affine) -> np.ndarray:
+    """Outline parts of whole polygons: small holes filled, rings simplified to half a cell,
+    repaired, polygon parts of at least ``MIN_OUTLINE_PART_CELLS`` cells (elementwise, so any split
+    gives the same)."""
+    if polys.size == 0:
+        return np.zeros(0, dtype=object)
+    cell_area = abs(transform.a * transform.e)
     simple = _rings_op(polys, MIN_HOLE_CELLS * cell_area, max(abs(transform.a), abs(transform.e)) / 2.0)
     bad = ~shapely.is_valid(simple)
     simple[bad] = shapely.make_valid(simple[bad])
     parts = shapely.get_parts(shapely.get_parts(simple))
     parts = parts[shapely.get_type_id(parts) == 3]                 # polygons only
-    parts = parts[shapely.area(parts) >= MIN_OUTLINE_PART_CELLS * cell_area - 1e-9 * cell_area]
-    return list(parts)
+    return parts[shapely.area(parts) >= MIN_OUTLINE_PART_CELLS * cell_area - 1e-9 * cell_area]
 
 
 def _rings_op(polys: np.ndarray, min_hole_area: float, tolerance: float | None) -> np.ndarray:
