@@ -44,7 +44,8 @@ class Surface:
         quads, index = [], []
         for i in np.flatnonzero(np.isfinite(wse[:-1]) & np.isfinite(wse[1:])):
             ring = list(sections[i].line.coords) + list(sections[i + 1].line.coords)[::-1]
-            quad = polygonal(shapely.make_valid(Polygon([c[:2] for c in ring])))
+            quad = Polygon([c[:2] for c in ring])
+            quad = quad if quad.is_valid and quad.area > 0 else polygonal(shapely.make_valid(quad))  # bends
             if quad is not None and clip is not None:
                 quad = polygonal(shapely.intersection(quad, clip))
             if quad is not None:
