@@ -40,27 +40,38 @@ TASK_STAGES = ("sections", "overlay", "hydraulics", "mapping", "report", "tables
 TARGET_KM, TARGET_EVENTS, TARGET_CORES = 100_000.0, 5, 100
 
 
-def child_run(config: Path, workers: int, floor: bool) -> dict:
-    """One run in this fresh interpreter: times, CPU, RSS, stage seconds, and optionally its floor."""
+def child_run(config: Path, workers: int, floor: bool, inline: bool) -> dict:
+    """One run in this fresh interpreter: times, CPU, RSS, stage seconds, and optionally its floor.
+
+    ``inline``: reports drawn by the task itself (no report process), so a 1-worker run uses one core.
+    """
     t0 = time.perf_counter()
     from geoflow import timing
-    from geoflow.batch import run
+    from geoflow.batch import reports, run
     t_import = time.perf_counter() - t0
+    if inline:
+        reports.start = lambda *args: None
     shutil.rmtree(config.parent / "out", ignore_errors=True)
     t1, c1 = time.perf_counter(), time.process_time()
     res = run(config, workers=workers)
     wall = time.perf_counter() - t1
-    parent = timing.snapshot()
+    parent, parent_cpu = timing.snapshot(), timing.snapshot(cpu=True)
     man = json.loads((res.output_dir / "manifest.json").read_text())
-    tasks = {}
+    tasks, tasks_cpu = {}, {}
     for entry in man["reaches"].values():
         for k, v in (entry.get("timings_s") or {}).items():
-            tasks[k] = tasks.get(k, 0.0) + v
+            if k == "cpu":
+                for kk, vv in v.items():
+                    tasks_cpu[kk] = tasks_cpu.get(kk, 0.0) + vv
+            else:
+                tasks[k] = tasks.get(k, 0.0) + v
     rs, rc = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
     out = {"import_s": t_import, "wall_s": wall, "compute_and_assemble_s": res.elapsed_s,
            "cpu_s": time.process_time() - c1 + rc.ru_utime + rc.ru_stime,      # the run's, imports aside
+           "cpu_self_s": time.process_time() - c1, "cpu_children_s": rc.ru_utime + rc.ru_stime,
            "rss_mb": rs.ru_maxrss / 1024, "rss_children_mb": rc.ru_maxrss / 1024,
-           "parent_stages": parent, "task_stages": tasks, "failed": res.failed,
+           "parent_stages": parent, "task_stages": tasks, "parent_cpu": parent_cpu, "task_cpu": tasks_cpu,
+           "failed": res.failed, "inline": inline,
            "reaches": len(res.reaches), "workers": workers}
     if floor:
         from io_floor import io_floor
@@ -100,12 +111,12 @@ def spawn(*args: str) -> dict:
 
 
 def stage_shares(r: dict) -> dict:
-    """Seconds by stage over every process: the run's own (validation, assembly, in-process tasks),
-    its workers' (from the manifest) and its report process's."""
-    s = dict(r["parent_stages"])
+    """CPU seconds by stage over every process: the run's own (validation, assembly, in-process
+    tasks), its workers' (from the manifest) and, for the report process, its wall seconds."""
+    s = dict(r["parent_cpu"])
     if r["workers"] > 1:
         for k in TASK_STAGES:
-            s[k] = s.get(k, 0.0) + r["task_stages"].get(k, 0.0)
+            s[k] = s.get(k, 0.0) + r["task_cpu"].get(k, 0.0)
     s["report"] = s.get("report", 0.0) + r["task_stages"].get("report_process", 0.0)
     s["io"] = s.pop("io_read", 0.0) + s.pop("io_write", 0.0)
     return s
@@ -114,7 +125,7 @@ def stage_shares(r: dict) -> dict:
 def print_shares(r: dict) -> None:
     s = stage_shares(r)
     total = sum(s.values())
-    print("      stage seconds (share of the stage total %.1f s): " % total
+    print("      CPU seconds by stage (share of %.1f s): " % total
           + ", ".join(f"{k} {v:.1f} ({100 * v / total:.0f} %)" for k, v in sorted(s.items(), key=lambda kv: -kv[1])))
 
 
@@ -126,7 +137,7 @@ def network(args) -> None:
     print(f"network: {net.reaches} reaches x {net.reach_length_m / 1000:.2f} km = {net.total_km:.0f} km, "
           f"{events} events, DEM {net.columns} x {net.rows} valleys at 2 m (inputs ready in "
           f"{time.perf_counter() - t0:.0f} s)")
-    serial = spawn("run", str(net.config), "1", "floor")
+    serial = spawn("run", str(net.config), "1", "floor", "inline")
     many = spawn("run", str(net.config), str(args.workers))
     kme = net.total_km * events
     for r in (serial, many):
@@ -145,26 +156,20 @@ def network(args) -> None:
 
 
 def extrapolate(serial: dict, many: dict, km: float, events: int, workers: int) -> None:
-    """100,000 km x 5 events on 100 cores, from this run's per-km costs (an extrapolation).
+    """100,000 km x 5 events on 100 cores, from the N-worker run's costs (an extrapolation).
 
-    Client (serial there too): validation and assembly = serial wall minus its reach tasks. Workers:
-    the reach tasks (reports drawn inline, as Dask workers do) plus the geometry, which Dask workers
-    build again (no validation cache there), at the parallel efficiency of the N-worker run.
+    Client (serial on any cluster): this process's CPU in the N-worker run (opening the inputs,
+    the cheap checks, scheduling, assembling the run-level files). Workers: their CPU (validating
+    each reach, then computing it, reports included), at the parallel efficiency measured here.
     """
-    tasks = serial["task_stages"].get("total", 0.0) + serial["task_stages"].get("report_process", 0.0)
-    client = serial["wall_s"] - serial["task_stages"].get("total", 0.0)
-    assemble = serial["compute_and_assemble_s"] - serial["task_stages"].get("total", 0.0)
-    geometry_per_km = (serial["parent_stages"].get("sections", 0.0) + serial["parent_stages"].get("overlay", 0.0)) / km
-    efficiency = tasks / ((many["compute_and_assemble_s"] - assemble) * workers)
-    client_h = client / km * TARGET_KM / 3600
-    worker_h = (tasks / (km * events) * TARGET_KM * TARGET_EVENTS + geometry_per_km * TARGET_KM) \
-        / (TARGET_CORES * min(efficiency, 1.0)) / 3600
-    print(f"  per km: client {client / km:.3f} s (validation and assembly), reach tasks {tasks / (km * events):.3f} s "
-          f"per km x event, geometry {geometry_per_km:.3f} s; parallel efficiency with {workers} workers "
-          f"{efficiency:.2f}")
+    efficiency = min(serial["wall_s"] / (many["wall_s"] * workers), 1.0)
+    client_h = many["cpu_self_s"] / km * TARGET_KM / 3600
+    worker_h = many["cpu_children_s"] / (km * events) * TARGET_KM * TARGET_EVENTS / (TARGET_CORES * efficiency) / 3600
+    print(f"  per km: client {many['cpu_self_s'] / km:.3f} CPU s, workers {many['cpu_children_s'] / (km * events):.3f} "
+          f"CPU s per km x event; parallel efficiency with {workers} workers {efficiency:.2f} (wall times)")
     print(f"  extrapolation (not a measurement): {TARGET_KM:,.0f} km x {TARGET_EVENTS} events on {TARGET_CORES} "
-          f"cores at these costs: {client_h + worker_h:.1f} h ({worker_h:.1f} h of reach tasks on the workers, "
-          f"{client_h:.1f} h of validation and assembly in the client, which runs them serially)")
+          f"cores at these costs: {client_h + worker_h:.1f} h ({worker_h:.1f} h on the workers, {client_h:.1f} h "
+          "in the client, which works serially)")
 
 
 def lengths(args) -> None:
@@ -220,7 +225,7 @@ def main() -> None:
     if args.child:
         kind = args.child[0]
         res = child_demo() if kind == "demo" else \
-            child_run(Path(args.child[1]), int(args.child[2]), len(args.child) > 3 and args.child[3] == "floor")
+            child_run(Path(args.child[1]), int(args.child[2]), "floor" in args.child[3:], "inline" in args.child[3:])
         print(json.dumps(res))
         return
     if args.lengths is None:

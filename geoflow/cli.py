@@ -54,7 +54,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         from .batch import check, run  # after parsing: --help and --version stay fast
         if args.command == "check":
-            for line in check(args.config).summary_lines():
+            for line in check(args.config, keep_geometries=False).summary_lines():
                 print(line)
             return 0
         if args.workers < 1:

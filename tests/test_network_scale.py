@@ -200,3 +200,22 @@ def test_in_place_distances_to_dog_leg_sections_equal_the_plain_expression():
     x, y = rng.uniform(-50, 400, 5000), rng.uniform(-150, 150, 5000)
     which = rng.integers(0, 12, 5000)
     np.testing.assert_array_equal(surface._distance_to(x, y, which), point_polyline_distance(x, y, surface.pieces[which]))
+
+
+def test_validation_on_workers_finds_what_validation_here_finds(tmp_path):
+    # Reference: the same run validated in this process. r2's stage boundary lies below its
+    # ground, a problem found only once its sections are cut; on 2 workers each reach is
+    # validated there, with the same message, and nothing is written.
+    from geoflow.errors import GeoflowError
+    v = multi_valley(tmp_path, n_reaches=3, length=400.0)
+    cfg = config_for(v, tmp_path / "val", "out_val")
+    cfg.write_text(cfg.read_text() + '\n[boundary.reaches.r2]\ndownstream = { type = "stage", wse = 1.0 }\n')
+    messages = []
+    for workers in (1, 2):
+        with pytest.raises(GeoflowError) as err:
+            run(cfg, workers=workers)
+        messages.append(str(err.value))
+        assert not (v.dem.parent / "out_val").exists()
+    assert messages[0] == messages[1] and "r2" in messages[0] and "below the lowest ground" in messages[0]
+    kept = run(cfg, workers=2, keep_going=True)
+    assert kept.failed == ["r2"] and "below the lowest ground" in kept.reaches["r2"]["error"]

@@ -1,6 +1,8 @@
 """Where reach tasks run: in this process, in a local process pool, or on a Dask cluster.
 
-Each engine has the same small interface: ``submit(spec) -> handle``, ``wait(handles) -> handle``
+Each engine has the same small interface: ``submit(spec, fn=compute_reach) -> handle`` (``fn`` may
+also be :func:`geoflow.batch.tasks.check_reach`, to validate reaches where they run),
+``wait(handles) -> handle``
 (the next one done, in constant time however many are in flight: handles report themselves done
 to a queue, so a batch of N reaches costs O(N), not O(N^2), to schedule) and ``result(handle) ->
 info dict``; ``close()`` frees it. A worker that dies
@@ -25,14 +27,17 @@ WORKER_DIED = ("the worker process computing this reach died (killed, or out of 
 class InProcess:
     """Tasks run in this process when their result is asked for (so progress stays live)."""
 
-    def submit(self, spec: TaskSpec):
-        return spec
+    parallel = False
+
+    def submit(self, spec: TaskSpec, fn=None):
+        return (fn or compute_reach, spec)
 
     def wait(self, handles):
         return next(iter(handles))
 
-    def result(self, spec: TaskSpec) -> dict:
-        return compute_reach(spec)
+    def result(self, handle) -> dict:
+        fn, spec = handle
+        return fn(spec)
 
     def close(self) -> None:
         pass
@@ -49,13 +54,16 @@ class Pool:
     def _new(self):
         return cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=pool_context())
 
-    def submit(self, spec: TaskSpec):
+    parallel = True
+
+    def submit(self, spec: TaskSpec, fn=None):
+        fn = fn or compute_reach
         try:
-            fut = self.pool.submit(compute_reach, spec)
+            fut = self.pool.submit(fn, spec)
         except cf.process.BrokenProcessPool:
             self.pool.shutdown(wait=False, cancel_futures=True)
             self.pool = self._new()
-            fut = self.pool.submit(compute_reach, spec)
+            fut = self.pool.submit(fn, spec)
         fut.add_done_callback(self.done.put)
         return fut
 
@@ -87,8 +95,10 @@ class DaskCluster:
         from distributed import as_completed
         self.done = as_completed()
 
-    def submit(self, spec: TaskSpec):
-        fut = self.client.submit(compute_reach, spec, pure=False)
+    parallel = True
+
+    def submit(self, spec: TaskSpec, fn=None):
+        fut = self.client.submit(fn or compute_reach, spec, pure=False)
         self.done.add(fut)
         return fut
 

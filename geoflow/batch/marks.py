@@ -95,15 +95,17 @@ def _chainage(lines, x, y) -> np.ndarray:
     return ch
 
 
-def check_within_sections(cfg, marks_by_reach: dict, geometries: dict) -> None:
-    """Every mark must lie between the first and last section of its reach (InputDataError naming it)."""
+def check_within_sections(cfg, marks_by_reach: dict, first_last: dict) -> None:
+    """Every mark must lie between the first and last section of its reach (InputDataError naming it).
+
+    ``first_last``: {reach id: (chainage of its first section, of its last section)} (m).
+    """
     where = cfg.calibration.observations if cfg.calibration is not None else ""
     outside = []
     for rid, rm in marks_by_reach.items():
-        geom = geometries.get(rid)
-        if geom is None:
+        if rid not in first_last:
             continue
-        lo, hi = geom.sections[0].chainage, geom.sections[-1].chainage
+        lo, hi = first_last[rid]
         for i in np.flatnonzero((rm.chainage < lo - 1e-6) | (rm.chainage > hi + 1e-6)):
             outside.append(f"feature {int(rm.feature[i])} (reach {rid!r}, chainage {rm.chainage[i]:.1f} m, sections "
                            f"{lo:.1f}-{hi:.1f} m)")

@@ -38,7 +38,7 @@ from .engines import engine
 from .inputs import Inputs
 from .lock import FolderLock
 from .progress import Progress
-from .tasks import GEOMETRY_CACHE, TaskSpec
+from .tasks import GEOMETRY_CACHE, TaskSpec, check_reach
 from .validate import as_config, validate
 
 log = logging.getLogger("geoflow")
@@ -78,18 +78,51 @@ class _Plan:
     remove: set = field(default_factory=set)                      # files of earlier runs to delete
 
 
-def _plan(cfg: Config, others: tuple, keep_going: bool) -> _Plan:
-    checked = validate(cfg, others)
-    if not keep_going:
+def _plan(cfg: Config, others: tuple, keep_going: bool, runner) -> _Plan:
+    """Validate one config (on the run's workers when there are some) and fix its input identity.
+
+    In-process runs keep the geometry built while validating (up to GEOMETRY_CACHE_SECTIONS
+    sections) for their tasks; runs on workers validate each reach there, in parallel, and
+    the tasks build it again (cheap next to computing the reach), so nothing of a network's
+    geometry is held here.
+    """
+    identity: dict = {}
+
+    def fix_identity() -> None:          # once the inputs are known to open
+        if not identity:
+            identity["hashes"] = manifest.input_hashes(cfg)
+            identity["ident"] = manifest.identity(cfg, identity["hashes"])
+            identity["fingerprints"] = manifest.fingerprints(cfg)
+
+    def elsewhere(rids):
+        fix_identity()
+        return _check_on(runner, cfg, identity["ident"], identity["fingerprints"], rids)
+    if runner.parallel:
+        checked = validate(cfg, others, keep_sections=0, elsewhere=elsewhere)
+    else:
+        checked = validate(cfg, others, keep_sections=GEOMETRY_CACHE_SECTIONS)
+    if not keep_going or not checked.reaches:
         checked.raise_problems()
-    if not checked.geometries:
-        checked.raise_problems()
-    hashes = manifest.input_hashes(cfg)
-    ident = manifest.identity(cfg, hashes)
-    if sum(len(g.sections) for g in checked.geometries.values()) <= GEOMETRY_CACHE_SECTIONS:
-        GEOMETRY_CACHE.update({(ident, rid): g for rid, g in checked.geometries.items()})
+    fix_identity()
+    hashes, ident, fingerprints = identity["hashes"], identity["ident"], identity["fingerprints"]
+    GEOMETRY_CACHE.update({(ident, rid): g for rid, g in checked.geometries.items()})
     return _Plan(cfg=cfg, inputs=checked.inputs, problems=checked.problems, hashes=hashes, identity=ident,
-                 fingerprints=manifest.fingerprints(cfg), result=RunResult(config=cfg, output_dir=cfg.run.output_dir))
+                 fingerprints=fingerprints, result=RunResult(config=cfg, output_dir=cfg.run.output_dir))
+
+
+def _check_on(runner, cfg: Config, ident: str, fingerprints: tuple, rids: list):
+    """Validate reaches on the run's workers: (reach id, problem or None, summary or None) as each ends."""
+    handles = {runner.submit(TaskSpec(config_path=str(cfg.path), config_sha256=cfg.sha256, identity=ident,
+                                      fingerprints=fingerprints, reach_id=rid, events=()), check_reach): rid
+               for rid in rids}
+    while handles:
+        h = runner.wait(handles)
+        rid = handles.pop(h)
+        out = runner.result(h)
+        if isinstance(out, dict):             # the worker died
+            yield rid, f"reach {rid!r}: {out.get('error')}", None
+        else:
+            yield out
 
 
 def _start(p: _Plan, resume: bool) -> None:
@@ -136,9 +169,10 @@ def run(config, workers: int = 1, scheduler: str | None = None, resume: bool = F
     cfgs = [as_config(c) for c in (config if many else [config])]
     with contextlib.ExitStack() as stack:
         tasks.REPORTS = stack.enter_context(_report_process(workers, scheduler, cfgs))  # warms up while we validate
-        plans = [_plan(c, tuple(o for o in cfgs if o is not c), keep_going) for c in cfgs]   # raises before writing
         runner = engine(workers, scheduler)          # an unreachable scheduler fails here, before writing
         stack.callback(runner.close)
+        stack.callback(GEOMETRY_CACHE.clear)
+        plans = [_plan(c, tuple(o for o in cfgs if o is not c), keep_going, runner) for c in cfgs]  # raises, no writes
         results = _run_plans(plans, runner, stack, resume, progress)
     return results if many else results[0]
 

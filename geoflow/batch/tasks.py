@@ -67,6 +67,16 @@ def _inputs(path: str, sha256: str, identity: str) -> Inputs:
     return open_inputs(_config(path, sha256, identity))
 
 
+def check_reach(spec: TaskSpec) -> tuple:
+    """Validate one reach where it will be computed (a run's worker): (reach id, problem or None,
+    summary or None), as :func:`geoflow.batch.validate.check_geometry`; the geometry stays here."""
+    from .validate import check_geometry
+    cfg = _config(spec.config_path, spec.config_sha256, spec.identity)
+    inputs = _inputs(spec.config_path, spec.config_sha256, spec.identity)
+    with inputs.dem.kept_open():
+        return check_geometry(cfg, inputs, spec.reach_id)
+
+
 def _check_unchanged(spec: TaskSpec) -> None:
     for path, size, mtime in spec.fingerprints:
         try:
@@ -107,7 +117,7 @@ def compute_reach(spec: TaskSpec) -> dict:
 def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float) -> None:
     """The stages of one reach; ``timings_s`` gets the seconds each took (:mod:`geoflow.timing`)."""
     rid = spec.reach_id
-    before = timing.snapshot()
+    before, before_cpu = timing.snapshot(), timing.snapshot(cpu=True)
     geom = GEOMETRY_CACHE.get((spec.identity, rid)) or reach.build_geometry(cfg, inputs, rid, inputs.line_of(rid))
     info["sections"], info["warnings"] = len(geom.sections), list(geom.warnings)
     if geom.channel:
@@ -144,6 +154,7 @@ def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float)
             info["files"] += [relative_name(cfg.run.output_dir, f) for f in write_reach_report(cfg, inputs, geom)]
     info["timings_s"] = {k: round(v, 4) for k, v in timing.since(before).items()}
     info["timings_s"]["total"] = round(time.perf_counter() - t0, 4)
+    info["timings_s"]["cpu"] = {k: round(v, 4) for k, v in timing.since(before_cpu, cpu=True).items()}
     failed = [e for e, u in info["events"].items() if u["status"] != "complete"]
     info["status"] = "failed" if failed else "complete"
     info["error"] = "; ".join(info["events"][e]["error"] for e in failed) or None

@@ -44,36 +44,56 @@ from .marks import check_within_sections
 MAX_LISTED = 3      # problems spelt out in the one-line message; the rest are counted
 
 
+@dataclass(frozen=True)
+class ReachSummary:
+    """What validation reports of a reach that passed: length (m), sections, flagged sections, the
+    chainages of its first and last section (m), lines describing its channel and structures, warnings."""
+
+    length_m: float
+    sections: int
+    flagged: int
+    warnings: tuple[str, ...]
+    first_last: tuple[float, float] = (0.0, 0.0)
+    details: tuple[str, ...] = ()
+
+    @classmethod
+    def of(cls, geom: ReachGeometry) -> "ReachSummary":
+        details = [describe_channel(geom.reach_id, geom.channel)] if geom.channel else []
+        for p in geom.structures:
+            up, down = geom.sections[p.upstream], geom.sections[p.upstream + 1]
+            details.append(f"{p.kind} {p.structure_id} at {p.chainage:g} m: faces sections {up.section_id} / "
+                           f"{down.section_id} ({up.chainage:.1f} / {down.chainage:.1f} m)")
+        return cls(float(geom.sections[-1].chainage), len(geom.sections), sum(1 for s in geom.sections if s.flags),
+                   tuple(geom.warnings), (float(geom.sections[0].chainage), float(geom.sections[-1].chainage)),
+                   tuple(details))
+
+
 @dataclass
 class CheckResult:
-    """What :func:`check` found: the config, its opened inputs, each reach's geometry, problems by reach."""
+    """What :func:`check` found: the config, its opened inputs, a summary of every reach that passed
+    (``reaches``), their geometry (``geometries``: all of them, or as many as the caller kept) and
+    the problems by reach."""
 
     config: Config
     inputs: Inputs
     geometries: dict[str, ReachGeometry]
     problems: dict[str, str] = field(default_factory=dict)
+    reaches: dict[str, ReachSummary] = field(default_factory=dict)
 
     def summary_lines(self) -> list[str]:
         cfg = self.config
         lines = [f"config {cfg.path}: OK", f"DEM {cfg.terrain.dem} ({self.inputs.dem.crs.to_string()}, "
                  f"{self.inputs.dem.cell_size:g} m cells)",
-                 f"{len(self.geometries) + len(self.problems)} reach(es), {len(cfg.events)} event(s): "
+                 f"{len(self.reaches) + len(self.problems)} reach(es), {len(cfg.events)} event(s): "
                  + ", ".join(e.name for e in cfg.events)]
         if cfg.roughness.cases:
             lines.append(f"roughness cases: {', '.join(cfg.roughness.all_cases())}")
-        for rid, g in self.geometries.items():
-            flagged = sum(1 for s in g.sections if s.flags)
+        for rid, r in self.reaches.items():
             marks = self.inputs.marks.get(rid)
             observed = f", {marks.wse.size} observed level(s) to calibrate to" if marks is not None else ""
-            lines.append(f"  reach {rid}: {g.sections[-1].chainage:.0f} m, {len(g.sections)} sections, "
-                         f"{flagged} flagged{observed}")
-            if g.channel:
-                lines.append(f"    {describe_channel(rid, g.channel)}")
-            for p in g.structures:
-                up, down = g.sections[p.upstream], g.sections[p.upstream + 1]
-                lines.append(f"    {p.kind} {p.structure_id} at {p.chainage:g} m: faces sections {up.section_id} / "
-                             f"{down.section_id} ({up.chainage:.1f} / {down.chainage:.1f} m)")
-            lines.extend(f"    warning: {w}" for w in g.warnings)
+            lines.append(f"  reach {rid}: {r.length_m:.0f} m, {r.sections} sections, {r.flagged} flagged{observed}")
+            lines.extend(f"    {d}" for d in r.details)
+            lines.extend(f"    warning: {w}" for w in r.warnings)
         lines.extend(f"  reach {rid}: PROBLEM: {msg}" for rid, msg in self.problems.items())
         return lines
 
@@ -92,44 +112,64 @@ def as_config(config: str | Path | Config) -> Config:
     return config if isinstance(config, Config) else load_config(config)
 
 
-def validate(config: str | Path | Config, others: tuple = ()) -> CheckResult:
+def validate(config: str | Path | Config, others: tuple = (), keep_sections: float = float("inf"),
+             elsewhere=None) -> CheckResult:
     """Validate a config and its inputs (see the module notes); reach problems are returned, not raised.
 
     ``others``: configs run together with this one (their inputs are protected from its outputs).
+    ``keep_sections``: keep the geometry of reaches (in layer order) while their sections add up to
+    at most this many; the others are summarised only (a network's geometry need not fit in memory).
+    ``elsewhere``: a callable ``(reach ids) -> iterable of (reach id, problem or None, summary or
+    None)`` that checks reaches' geometry somewhere else (in parallel on a run's workers).
     """
     cfg = as_config(config)
     with timing.stage("inputs"):
         inputs = open_inputs(cfg)
+    geoms: dict = {}
+    summaries: dict = {}
     with inputs.dem.kept_open(), timing.stage("validate"):
         problems = reach_problems(cfg, inputs)
-        geoms = {}
-        for rid, line in inputs.reaches:
-            if rid in problems:
+        todo = [rid for rid, _ in inputs.reaches if rid not in problems]
+        found = elsewhere(todo) if elsewhere is not None else \
+            (check_geometry(cfg, inputs, rid, keep=True) for rid in todo)
+        kept = 0
+        for rid, problem, summary, *geom in found:
+            if problem is not None:
+                problems[rid] = problem
                 continue
-            try:
-                geom = reach.build_geometry(cfg, inputs, rid, line)
-            except GeoflowError as exc:
-                problems[rid] = str(exc)
-                continue
-            level = boundary_level_problems(cfg, rid, _end_ground(geom), _end_discharges(cfg, rid, geom))
-            built = _structure_problems(cfg, geom)
-            if level or built:
-                problems[rid] = f"{cfg.path}: " + "; ".join(level + built)
-            else:
-                geoms[rid] = geom
-    check_within_sections(cfg, inputs.marks, geoms)
+            summaries[rid] = summary
+            if geom and geom[0] is not None and kept + summary.sections <= keep_sections:
+                geoms[rid], kept = geom[0], kept + summary.sections
+    check_within_sections(cfg, inputs.marks, {rid: r.first_last for rid, r in summaries.items()})
     check_inputs_not_outputs(cfg, tuple(others))
     order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)
     problems = {rid: problems[rid] for rid in order if rid in problems}
-    return CheckResult(config=cfg, inputs=inputs, geometries=geoms, problems=problems)
+    summaries = {rid: summaries[rid] for rid in order if rid in summaries}
+    return CheckResult(config=cfg, inputs=inputs, geometries=geoms, problems=problems, reaches=summaries)
 
 
-def check(config: str | Path | Config) -> CheckResult:
+def check_geometry(cfg: Config, inputs: Inputs, rid: str, keep: bool = False) -> tuple:
+    """(reach id, problem or None, ReachSummary or None[, geometry]): sections cut, n given,
+    boundary levels checked against the end sections' ground; the geometry only with ``keep``."""
+    try:
+        geom = reach.build_geometry(cfg, inputs, rid, inputs.line_of(rid))
+    except GeoflowError as exc:
+        return (rid, str(exc), None) + ((None,) if keep else ())
+    level = boundary_level_problems(cfg, rid, _end_ground(geom), _end_discharges(cfg, rid, geom))
+    built = _structure_problems(cfg, geom)
+    if level or built:
+        return (rid, f"{cfg.path}: " + "; ".join(level + built), None) + ((None,) if keep else ())
+    return (rid, None, ReachSummary.of(geom)) + ((geom,) if keep else ())
+
+
+def check(config: str | Path | Config, keep_geometries: bool = True) -> CheckResult:
     """Validate config and inputs and cut every reach's sections; compute and write nothing.
 
-    Raises a GeoflowError (one line) for any problem, reach problems included.
+    Raises a GeoflowError (one line) for any problem, reach problems included. With
+    ``keep_geometries`` the result holds every reach's geometry (``geometries``); without, only
+    their summaries (``reaches``), in bounded memory however large the network.
     """
-    result = validate(config)
+    result = validate(config, keep_sections=float("inf") if keep_geometries else 0)
     result.raise_problems()
     return result
 
