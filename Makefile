@@ -34,6 +34,7 @@ bench: $(BIN)/.installed
 	$(BIN)/python benchmarks/bench_batch.py
 	$(BIN)/python benchmarks/bench_cases.py --length 2000
 	$(BIN)/python benchmarks/bench_report.py
+	$(BIN)/python benchmarks/bench_network.py --quick
 
 clean:
 	rm -rf out .pytest_cache .hypothesis
