@@ -42,7 +42,7 @@ from .tasks import GEOMETRY_CACHE, TaskSpec, check_reach
 from .validate import as_config, validate
 
 log = logging.getLogger("geoflow")
-GEOMETRY_CACHE_SECTIONS = 20_000     # geometry kept from validation for in-process / forked tasks
+GEOMETRY_CACHE_STATIONS = 1_000_000  # ground points of geometry kept from validation for in-process tasks (~100 MB)
 
 
 @dataclass
@@ -81,8 +81,8 @@ class _Plan:
 def _plan(cfg: Config, others: tuple, keep_going: bool, runner) -> _Plan:
     """Validate one config (on the run's workers when there are some) and fix its input identity.
 
-    In-process runs keep the geometry built while validating (up to GEOMETRY_CACHE_SECTIONS
-    sections) for their tasks; runs on workers validate each reach there, in parallel, and
+    In-process runs keep the geometry built while validating (up to GEOMETRY_CACHE_STATIONS
+    ground points) for their tasks; runs on workers validate each reach there, in parallel, and
     the tasks build it again (cheap next to computing the reach), so nothing of a network's
     geometry is held here.
     """
@@ -98,9 +98,9 @@ def _plan(cfg: Config, others: tuple, keep_going: bool, runner) -> _Plan:
         fix_identity()
         return _check_on(runner, cfg, identity["ident"], identity["fingerprints"], rids)
     if runner.parallel:
-        checked = validate(cfg, others, keep_sections=0, elsewhere=elsewhere)
+        checked = validate(cfg, others, keep_stations=0, elsewhere=elsewhere)
     else:
-        checked = validate(cfg, others, keep_sections=GEOMETRY_CACHE_SECTIONS)
+        checked = validate(cfg, others, keep_stations=GEOMETRY_CACHE_STATIONS)
     if not keep_going or not checked.reaches:
         checked.raise_problems()
     fix_identity()

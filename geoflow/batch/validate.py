@@ -46,13 +46,15 @@ MAX_LISTED = 3      # problems spelt out in the one-line message; the rest are c
 
 @dataclass(frozen=True)
 class ReachSummary:
-    """What validation reports of a reach that passed: length (m), sections, flagged sections, the
-    chainages of its first and last section (m), lines describing its channel and structures, warnings."""
+    """What validation reports of a reach that passed: length (m), sections, flagged sections,
+    warnings, ground points of all its sections, the chainages of its first and last section (m),
+    lines describing its channel and structures."""
 
     length_m: float
     sections: int
     flagged: int
     warnings: tuple[str, ...]
+    stations: int = 0           # ground points of all sections (the geometry's size)
     first_last: tuple[float, float] = (0.0, 0.0)
     details: tuple[str, ...] = ()
 
@@ -64,8 +66,8 @@ class ReachSummary:
             details.append(f"{p.kind} {p.structure_id} at {p.chainage:g} m: faces sections {up.section_id} / "
                            f"{down.section_id} ({up.chainage:.1f} / {down.chainage:.1f} m)")
         return cls(float(geom.sections[-1].chainage), len(geom.sections), sum(1 for s in geom.sections if s.flags),
-                   tuple(geom.warnings), (float(geom.sections[0].chainage), float(geom.sections[-1].chainage)),
-                   tuple(details))
+                   tuple(geom.warnings), sum(int(s.station.size) for s in geom.sections),
+                   (float(geom.sections[0].chainage), float(geom.sections[-1].chainage)), tuple(details))
 
 
 @dataclass
@@ -112,13 +114,14 @@ def as_config(config: str | Path | Config) -> Config:
     return config if isinstance(config, Config) else load_config(config)
 
 
-def validate(config: str | Path | Config, others: tuple = (), keep_sections: float = float("inf"),
+def validate(config: str | Path | Config, others: tuple = (), keep_stations: float = float("inf"),
              elsewhere=None) -> CheckResult:
     """Validate a config and its inputs (see the module notes); reach problems are returned, not raised.
 
     ``others``: configs run together with this one (their inputs are protected from its outputs).
-    ``keep_sections``: keep the geometry of reaches (in layer order) while their sections add up to
-    at most this many; the others are summarised only (a network's geometry need not fit in memory).
+    ``keep_stations``: keep the geometry of reaches (in layer order) while their sections' ground
+    points add up to at most this many; the others are summarised only (a network's geometry need
+    not fit in memory).
     ``elsewhere``: a callable ``(reach ids) -> iterable of (reach id, problem or None, summary or
     None)`` that checks reaches' geometry somewhere else (in parallel on a run's workers).
     """
@@ -138,8 +141,8 @@ def validate(config: str | Path | Config, others: tuple = (), keep_sections: flo
                 problems[rid] = problem
                 continue
             summaries[rid] = summary
-            if geom and geom[0] is not None and kept + summary.sections <= keep_sections:
-                geoms[rid], kept = geom[0], kept + summary.sections
+            if geom and geom[0] is not None and kept + summary.stations <= keep_stations:
+                geoms[rid], kept = geom[0], kept + summary.stations
     check_within_sections(cfg, inputs.marks, {rid: r.first_last for rid, r in summaries.items()})
     check_inputs_not_outputs(cfg, tuple(others))
     order = [rid for rid, _ in inputs.reaches] + list(inputs.unusable)
@@ -169,7 +172,7 @@ def check(config: str | Path | Config, keep_geometries: bool = True) -> CheckRes
     ``keep_geometries`` the result holds every reach's geometry (``geometries``); without, only
     their summaries (``reaches``), in bounded memory however large the network.
     """
-    result = validate(config, keep_sections=float("inf") if keep_geometries else 0)
+    result = validate(config, keep_stations=float("inf") if keep_geometries else 0)
     result.raise_problems()
     return result
 
