@@ -23,12 +23,19 @@ import os
 import threading
 
 
-class ReportProcess:
-    """One forked process that writes reach reports on request."""
+#: report processes of an in-process run (at most the CPU count): with two, the reports of
+#: consecutive reaches are drawn side by side once the run has nothing left to compute (the demo:
+#: the tributary's page beside the river's, 1.7 s of 3.3 s)
+REPORT_PROCESSES = 2
 
-    def __init__(self):
-        self.pool = cf.ProcessPoolExecutor(max_workers=1, mp_context=multiprocessing.get_context("fork"))
-        self.pool.submit(_warm_up)
+
+class ReportProcess:
+    """Forked processes that write reach reports on request."""
+
+    def __init__(self, processes: int = 1):
+        self.pool = cf.ProcessPoolExecutor(max_workers=processes, mp_context=multiprocessing.get_context("fork"))
+        for _ in range(processes):
+            self.pool.submit(_warm_up)
 
     def submit(self, spec, geom) -> cf.Future:
         """Start writing the report of ``geom``'s reach for task ``spec`` (its outputs must be on disk).
@@ -50,7 +57,7 @@ def start(workers: int, scheduler, configs) -> ReportProcess | None:
     can_fork = "fork" in multiprocessing.get_all_start_methods() and threading.active_count() == 1
     if workers != 1 or scheduler or not wanted or not can_fork or (os.cpu_count() or 1) < 2:
         return None
-    return ReportProcess()
+    return ReportProcess(min(REPORT_PROCESSES, os.cpu_count() or 1))
 
 
 def _warm_up() -> None:
