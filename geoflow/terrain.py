@@ -29,6 +29,7 @@ from . import timing
 from .errors import InputDataError
 
 _LOCAL = threading.local()      # per thread: {path: [dataset, depth]} of DEMs kept open
+SAMPLE_TILE_CELLS = 1024        # points spread over more than this squared are sampled tile by tile
 KEPT_OPEN_CACHE_MB = 16         # GDAL block cache while a DEM is kept open (bounds memory on long reaches)
 
 VERTICAL_UNITS = {"m": 1.0, "metre": 1.0, "meter": 1.0, "ft": 0.3048, "foot": 0.3048, "us_ft": 1200.0 / 3937.0}
@@ -138,7 +139,10 @@ class Dem:
 
         Cell values sit at cell centres; a point is interpolated from its four surrounding
         centres. Points outside the DEM or touching a nodata cell give NaN. Only the
-        window covering the points is read from disk.
+        window covering the points is read from disk, or, when they spread over more than
+        ``SAMPLE_TILE_CELLS`` squared cells (a long valley's sections), the tiles of that size
+        they fall in, one at a time: the same values, in memory and time that grow with the
+        points, not with the box around them.
         """
         x = np.asarray(x, dtype=np.float64)
         y = np.asarray(y, dtype=np.float64)
@@ -158,6 +162,23 @@ class Dem:
         rf = np.clip(row_f[ok], 0.0, self.height - 1.0)
         c0 = np.floor(cf).astype(np.int64)
         r0 = np.floor(rf).astype(np.int64)
+        span = (int(c0.max()) - int(c0.min()) + 2) * (int(r0.max()) - int(r0.min()) + 2)
+        if span <= SAMPLE_TILE_CELLS ** 2:
+            val = self._bilinear(cf, rf, c0, r0)
+        else:                      # points spread over a large box: read only the tiles they fall in
+            tile = (r0 // SAMPLE_TILE_CELLS) * (self.width // SAMPLE_TILE_CELLS + 1) + c0 // SAMPLE_TILE_CELLS
+            order = np.argsort(tile, kind="stable")
+            cuts = np.flatnonzero(np.diff(tile[order])) + 1
+            val = np.empty(cf.size)
+            for part in np.split(order, cuts):
+                val[part] = self._bilinear(cf[part], rf[part], c0[part], r0[part])
+        flat = out.ravel()
+        flat[np.flatnonzero(ok)] = val
+        return flat.reshape(x.shape)
+
+    def _bilinear(self, cf, rf, c0, r0) -> np.ndarray:
+        """Bilinear values at fractional cell positions (cf, rf) with floors (c0, r0), from one
+        window read covering them (the same formula and cells whatever the window)."""
         wc0, wr0 = int(c0.min()), int(r0.min())
         wc1 = min(int(c0.max()) + 2, self.width)
         wr1 = min(int(r0.max()) + 2, self.height)
@@ -167,15 +188,12 @@ class Dem:
         fx = cf - c0
         fy = rf - r0
         lc0, lc1, lr0, lr1 = c0 - wc0, c1 - wc0, r0 - wr0, r1 - wr0
-        val = (
+        return (
             z[lr0, lc0] * (1 - fx) * (1 - fy)
             + z[lr0, lc1] * fx * (1 - fy)
             + z[lr1, lc0] * (1 - fx) * fy
             + z[lr1, lc1] * fx * fy
         )
-        flat = out.ravel()
-        flat[np.flatnonzero(ok)] = val
-        return flat.reshape(x.shape)
 
 
 def _handles() -> dict:

@@ -22,7 +22,6 @@ import multiprocessing
 import os
 import threading
 
-
 #: report processes of an in-process run (at most the CPU count): with two, the reports of
 #: consecutive reaches are drawn side by side once the run has nothing left to compute (the demo:
 #: the tributary's page beside the river's, 1.7 s of 3.3 s)

@@ -28,6 +28,7 @@ from .common import points_along, sample_many
 
 BLOCK_M = 0.5             # a ridge this much higher than both ends of a flow path blocks it
 PROBE_STEPS = 2           # flow paths start every this many sample steps along a section
+RAY_CHUNK = 20_000        # flow paths sampled together (bounds memory on long reaches)
 
 
 def mark_storage(geom: ReachGeometry, dem=None, areas=None, detect: bool = True,
@@ -127,6 +128,9 @@ def ridge_between(xy: np.ndarray, t: np.ndarray, target, reach: float, dem, step
     crosses ground more than BLOCK_M above both of its ends (sampled every ``step`` m)."""
     if len(xy) == 0:
         return np.zeros(0, dtype=bool)
+    if len(xy) > RAY_CHUNK:          # each ray on its own: chunks bound the (rays x samples) arrays
+        return np.concatenate([ridge_between(xy[k:k + RAY_CHUNK], t[k:k + RAY_CHUNK], target[k:k + RAY_CHUNK],
+                                             reach, dem, step) for k in range(0, len(xy), RAY_CHUNK)])
     rays = shapely.linestrings(np.stack((xy, xy + reach * t), axis=1))
     hits = shapely.intersection(rays, target)
     ok = ~shapely.is_empty(hits)
