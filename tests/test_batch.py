@@ -113,8 +113,11 @@ def test_failing_reach_is_recorded_and_the_rest_go_on(tmp_path, capsys):
 
 
 def _units_complete(manifest: Path) -> int:
+    """Complete units recorded on disk: manifest.json plus the reach records appended to
+    manifest-updates.jsonl since its last rewrite (what --resume reads)."""
+    from geoflow.batch.manifest import load_previous
     try:
-        units = json.loads(manifest.read_text())["units"]
+        units = (load_previous(manifest.parent) or {})["units"]
     except (OSError, ValueError, KeyError):
         return 0
     return sum(1 for u in units.values() if u.get("status") == "complete")
