@@ -53,11 +53,12 @@ def io_floor(config_path: Path) -> dict:
         for rid, line in inputs.reaches:
             geom = reach.build_geometry(cfg, inputs, rid, line)
             cells_read += _section_reads(inputs.dem, geom, clock)
+            seen: set = set()                      # DEM blocks read for this reach
             for ev in cfg.events:
                 rows = profile[(profile.reach_id == rid) & (profile.event == ev.name)].sort_values("section_id")
                 if len(rows) != len(geom.sections):
                     continue
-                n, k = _event_io(cfg, inputs.dem, geom, rows["wse_m"].to_numpy(), rid, ev.name, clock)
+                n, k = _event_io(cfg, inputs.dem, geom, rows["wse_m"].to_numpy(), rid, ev.name, clock, seen)
                 cells_read, rasters = cells_read + n, rasters + k
         for tif in sorted((out / "mosaic").rglob("*.tif")) if (out / "mosaic").is_dir() else []:
             _rewrite(tif, None, clock)
@@ -78,21 +79,24 @@ def _section_reads(dem, geom, clock: Clock) -> int:
     return int(sum(w.width * w.height for w in wins))
 
 
-def _event_io(cfg, dem, geom, wse, rid: str, event: str, clock: Clock) -> tuple[int, int]:
-    """Read the DEM blocks the mapping of one event reads; rewrite its rasters. -> (cells, rasters)."""
+def _event_io(cfg, dem, geom, wse, rid: str, event: str, clock: Clock, seen: set) -> tuple[int, int]:
+    """Read the DEM blocks the mapping of one event reads (those not in ``seen``, the blocks already
+    read for this reach); rewrite its rasters. -> (cells read, rasters)."""
     ctx, grid = _prepare(dem, geom, wse, cfg.mapping.cell_size, PAD_CELLS, 2048, None)
     touched = [win for _, _, win in grid.blocks()
                if ctx.surface.touching(*block_bounds(grid.transform, win.row_off, win.col_off,
                                                      (int(win.height), int(win.width)))).size]
+    fresh = [win for win in touched if (win.row_off, win.col_off) not in seen]
+    seen.update((win.row_off, win.col_off) for win in fresh)
     with clock:
-        for win in touched:
+        for win in fresh:
             grid.read_ground(dem, win)
     tifs = [cfg.run.output_dir / "rasters" / safe_name(rid) / f"{safe_name(event)}_{kind}.tif"
             for kind in ("wse", "depth", "velocity") if kind in cfg.mapping.outputs]
     for tif in tifs:
         _rewrite(tif, touched, clock)
     f = grid.factor
-    return int(sum(w.width * w.height for w in touched)) * f * f, len(tifs)
+    return int(sum(w.width * w.height for w in fresh)) * f * f, len(tifs)
 
 
 def _rewrite(tif: Path, windows, clock: Clock) -> None:

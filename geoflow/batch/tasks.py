@@ -137,10 +137,7 @@ def _compute(cfg: Config, inputs: Inputs, spec: TaskSpec, info: dict, t0: float)
                                             factors=combine(factors, case_factors(cfg.roughness.classes, case)))
                     for case in cfg.roughness.all_cases()}
     release_memory()                    # the section tables are gone: give their pages back before mapping
-    for ev in todo:
-        info["events"][ev.name] = _compute_event(cfg, inputs, geom, {c: p[ev.name] for c, p in profiles.items()},
-                                                 ev, factors)
-        release_memory()
+    info["events"].update(_compute_events(cfg, inputs, geom, profiles, todo, factors))
     if cfg.rating_curves is not None:
         with timing.stage("rating_curves"):
             path = part_paths(cfg.run.output_dir, safe_name(rid))["ratings"]
@@ -216,21 +213,44 @@ def _junction_wse(cfg: Config, inputs, geom, events, complete: tuple[str, ...]) 
         raise HydraulicsError(f"reach {geom.reach_id!r}: {exc}") from None
 
 
-def _compute_event(cfg: Config, inputs, geom, profs: dict, ev, factors: dict) -> dict:
-    """Map and write one event of a reach (every roughness case) whose profiles are solved (or failed)."""
-    for case, prof in profs.items():
-        if isinstance(prof, GeoflowError):
+def _compute_events(cfg: Config, inputs, geom, profiles: dict, todo: list, factors: dict) -> dict:
+    """Map and write the events of a reach whose profiles are solved (or failed): the rasters of all
+    of them, every roughness case, in one pass over the reach's blocks (:func:`_write_maps`), then
+    each event's tables. {event name: manifest entry}, in ``todo`` order."""
+    out, ready = {}, []
+    for ev in todo:
+        profs = {case: p[ev.name] for case, p in profiles.items()}
+        failed = [(case, prof) for case, prof in profs.items() if isinstance(prof, GeoflowError)]
+        if failed:
+            case, prof = failed[0]
             where = "" if case == "normal" else f" (roughness case {case!r})"
-            return {"status": "failed", "error": f"{prof}{where}"}
+            out[ev.name] = {"status": "failed", "error": f"{prof}{where}"}
+        else:
+            ready.append((ev, profs))
+    t1 = time.perf_counter()
+    try:
+        with timing.stage("mapping"):
+            files = _write_maps(cfg, inputs, geom, ready, factors)
+    except GeoflowError as exc:
+        files = {ev.name: exc for ev, _ in ready}
+    share = (time.perf_counter() - t1) / max(len(ready), 1)
+    for ev, profs in ready:
+        got = files[ev.name]
+        out[ev.name] = ({"status": "failed", "error": str(got)} if isinstance(got, GeoflowError)
+                        else _finish_event(cfg, geom, ev, profs, got, share))
+        release_memory()
+    return {ev.name: out[ev.name] for ev in todo}
+
+
+def _finish_event(cfg: Config, geom, ev, profs: dict, files: list[Path], mapping_s: float) -> dict:
+    """Tables of one mapped event (every roughness case) and its manifest entry; ``mapping_s``: its
+    share of the reach's mapping time."""
     t1 = time.perf_counter()
     parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(ev.name))
     try:
         with timing.stage("tables"):
             rows = pd.concat([outputs.profile_rows(geom, ev.name, p, case) for case, p in profs.items()],
                              ignore_index=True)
-        with timing.stage("mapping"):
-            files = _write_maps(cfg, inputs, geom, ev.name, profs, factors)
-        with timing.stage("tables"):
             files.append(outputs.write_profile_csv(parts["profile"], rows))
             if geom.structures:
                 table = pd.concat([outputs.structure_rows(geom, ev.name, p, case) for case, p in profs.items()],
@@ -242,41 +262,55 @@ def _compute_event(cfg: Config, inputs, geom, profs: dict, ev, factors: dict) ->
     normal = rows[rows["roughness_case"] == "normal"]
     flagged = int((normal["flags"].str.len() > 0).sum())
     return {"status": "complete", "error": None, "files": [relative_name(cfg.run.output_dir, f) for f in files],
-            "timings_s": {"mapping_and_writing": t2 - t1},
+            "timings_s": {"mapping_and_writing": mapping_s + t2 - t1},
             "max_depth_m": float(np.nanmax(normal["depth_m"])), "flagged_sections": flagged, **event_summary(normal)}
 
 
-def _write_maps(cfg: Config, inputs, geom, event: str, profs: dict, factors: dict) -> list[Path]:
-    """Rasters (block-wise COGs, with their units and the caution as metadata) of every roughness
-    case, the outline part (one multipolygon per reach, event and case) and the WSE spread part.
+def _write_maps(cfg: Config, inputs, geom, ready: list, factors: dict) -> dict:
+    """Rasters (block-wise COGs, with their units and the caution as metadata) of every event in
+    ``ready`` ((event, {case: profile})) and roughness case, written in one pass over the reach's
+    blocks (:func:`geoflow.mapping.write_reach_maps_many`); then per event the outline part (one
+    multipolygon per reach, event and case) and the WSE spread part. {event name: files}.
 
     The normal case keeps the names <event>_<kind>.tif (and is the only one with velocity); the
     other cases write <event>.<case>_wse.tif and <event>.<case>_depth.tif.
     """
+    from ..mapping import MapJob, write_reach_maps_many
+    rdir = cfg.run.output_dir / "rasters" / safe_name(geom.reach_id)
+    jobs, keys = [], []
+    for ev, profs in ready:
+        for case, prof in profs.items():
+            kinds = [k for k in ("wse", "depth", "velocity") if k in cfg.mapping.outputs
+                     and (case == "normal" or k != "velocity")]
+            if not kinds and "extent" not in cfg.mapping.outputs:
+                continue
+            stem = safe_name(ev.name) if case == "normal" else f"{safe_name(ev.name)}.{case}"
+            meta = {k: outputs.raster_metadata(k, CAUTION, reach_id=geom.reach_id, event=ev.name, run=cfg.run.name,
+                                               geoflow_version=__version__, config_sha256=cfg.sha256,
+                                               roughness_case=case)
+                    for k in kinds}
+            velocity = _velocity_inputs(cfg, inputs, geom, prof, factors) if "velocity" in kinds else None
+            jobs.append(MapJob(np.asarray(prof.wse), {k: rdir / f"{stem}_{k}.tif" for k in kinds}, velocity, meta))
+            keys.append((ev.name, case))
+    summaries = write_reach_maps_many(inputs.dem, geom, jobs, cell_size=cfg.mapping.cell_size,
+                                      clip=reach.map_clip(cfg, inputs, geom)) if jobs else []
+    by_event: dict = {ev.name: [] for ev, _ in ready}
+    for (event, case), m in zip(keys, summaries):
+        by_event[event].append((case, m))
+    return {ev.name: _event_files(cfg, inputs, geom, ev.name, profs, by_event[ev.name]) for ev, profs in ready}
+
+
+def _event_files(cfg: Config, inputs, geom, event: str, profs: dict, maps: list) -> list[Path]:
+    """Rasters of one event (``maps``: (case, MapSummary)), its outline part and WSE spread part."""
     import geopandas as gpd
     import shapely
 
-    from ..mapping import write_reach_maps, write_wse_spread
+    from ..mapping import write_wse_spread
     parts = part_paths(cfg.run.output_dir, safe_name(geom.reach_id), safe_name(event))
-    rdir = cfg.run.output_dir / "rasters" / safe_name(geom.reach_id)
     written, extents, wse_paths = [], [], {}
-    clip = reach.map_clip(cfg, inputs, geom)
-    for case, prof in profs.items():
-        kinds = [k for k in ("wse", "depth", "velocity") if k in cfg.mapping.outputs
-                 and (case == "normal" or k != "velocity")]
-        if not kinds and "extent" not in cfg.mapping.outputs:
-            continue
-        stem = safe_name(event) if case == "normal" else f"{safe_name(event)}.{case}"
-        paths = {k: rdir / f"{stem}_{k}.tif" for k in kinds}
-        velocity = _velocity_inputs(cfg, inputs, geom, prof, factors) if "velocity" in kinds else None
-        meta = {k: outputs.raster_metadata(k, CAUTION, reach_id=geom.reach_id, event=event, run=cfg.run.name,
-                                           geoflow_version=__version__, config_sha256=cfg.sha256,
-                                           roughness_case=case)
-                for k in kinds}
-        m = write_reach_maps(inputs.dem, geom, np.asarray(prof.wse), paths, cell_size=cfg.mapping.cell_size,
-                             velocity=velocity, clip=clip, meta=meta)
-        written += list(paths.values())
-        wse_paths[case] = paths.get("wse")
+    for case, m in maps:
+        written += list(m.paths.values())
+        wse_paths[case] = m.paths.get("wse")
         if m.extent:
             outline = shapely.multipolygons(m.extent)
             extents.append(gpd.GeoDataFrame({"reach_id": [geom.reach_id], "event": [event], "roughness_case": [case],

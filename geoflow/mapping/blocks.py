@@ -83,25 +83,40 @@ class Surface:
         sel = self.touching(*block_bounds(grid_transform, row_off, col_off, shape_rc)) if sel is None else sel
         if sel.size == 0:
             return out
-        transform = grid_transform @ Affine.translation(col_off, row_off)
-        burn = [(self.quads[j], int(self.index[j])) for j in sel[::-1]]     # later shapes win
-        label = rasterize(burn, out_shape=shape_rc, transform=transform, fill=-1, dtype="int32").ravel()
+        label = self.quad_labels(grid_transform, row_off, col_off, shape_rc, sel)
         cells = np.flatnonzero(label >= 0)
         if ground is not None:
-            idx = label[cells]
-            top = np.maximum(self.values[0, idx], self.values[0, idx + 1])
-            if self.lowering is not None:
-                top = top + np.maximum(self.most_lowered[idx], self.most_lowered[idx + 1])
-            cells = cells[np.asarray(ground).ravel()[cells] < top]          # NaN ground: False, dry
+            cells = cells[self._can_be_wet(self.values[0], label[cells], np.asarray(ground).ravel()[cells])]
         flat = out.reshape(out.shape[0], -1)
         for start in range(0, cells.size, CHUNK_CELLS):
             part = cells[start:start + CHUNK_CELLS]
             flat[:, part] = self._weights_and_values(grid_transform, row_off, col_off, shape_rc[1], part, label[part])
         return out
 
+    def quad_labels(self, grid_transform: Affine, row_off: int, col_off: int, shape_rc, sel) -> np.ndarray:
+        """(rows * cols,) int32: the quad index (lowest wins) of each cell of a block, -1 outside."""
+        transform = grid_transform @ Affine.translation(col_off, row_off)
+        burn = [(self.quads[j], int(self.index[j])) for j in sel[::-1]]     # later shapes win
+        return rasterize(burn, out_shape=shape_rc, transform=transform, fill=-1, dtype="int32").ravel()
+
+    def _can_be_wet(self, wse: np.ndarray, idx: np.ndarray, ground_at: np.ndarray) -> np.ndarray:
+        """Cells in quad ``idx`` whose ground lies below the larger WSE ``wse`` (N,) of the quad's two
+        sections plus the larger lowering (NaN ground: False, dry)."""
+        top = np.maximum(wse[idx], wse[idx + 1])
+        if self.lowering is not None:
+            top = top + np.maximum(self.most_lowered[idx], self.most_lowered[idx + 1])
+        return ground_at < top
+
     def _weights_and_values(self, gt, row_off, col_off, ncols, part, idx) -> np.ndarray:
         """Inverse-distance (linear) blend of sections idx and idx+1 at the cells ``part`` (distances
         to the section polylines, so dog-leg sections blend like straight ones)."""
+        w_up, lowered = self._weights(gt, row_off, col_off, ncols, part, idx)
+        vals = w_up * self.values[:, idx] + (1.0 - w_up) * self.values[:, idx + 1]
+        return vals if lowered is None else np.vstack([vals, lowered[None, :]])
+
+    def _weights(self, gt, row_off, col_off, ncols, part, idx) -> tuple[np.ndarray, np.ndarray | None]:
+        """Weight of section idx (that of idx + 1 is 1 - w) at the cells ``part``, and the channel
+        lowering there (None without one): both set by the geometry alone."""
         rows, cols = np.divmod(part, ncols)
         x = gt.c + gt.a * (cols + col_off + 0.5)
         y = gt.f + gt.e * (rows + row_off + 0.5)
@@ -109,10 +124,44 @@ class Surface:
         d_dn = self._distance_to(x, y, idx + 1)
         total = d_up + d_dn
         w_up = np.divide(d_dn, total, out=np.ones_like(total), where=total > 0)
-        vals = w_up * self.values[:, idx] + (1.0 - w_up) * self.values[:, idx + 1]
-        if self.lowering is None:
-            return vals
-        return np.vstack([vals, self.lowering.at(x, y, idx, w_up)[None, :]])
+        return w_up, (None if self.lowering is None else self.lowering.at(x, y, idx, w_up))
+
+    def shared_weights(self, grid_transform: Affine, row_off: int, col_off: int, shape_rc, sel,
+                       ground: np.ndarray, wse_top: np.ndarray) -> "SharedWeights":
+        """The geometry part of :meth:`interpolate` on a block, once for several WSE profiles
+        that share this surface's quads: the cells that can be wet under the highest profile
+        ``wse_top`` (N,), their quad index, weight and channel lowering. Each profile then takes
+        its own cells and values with :meth:`interpolate_shared`, the same numbers as
+        :meth:`interpolate` gives it (every operation is cell by cell)."""
+        label = self.quad_labels(grid_transform, row_off, col_off, shape_rc, sel)
+        cells = np.flatnonzero(label >= 0)
+        ground_flat = np.asarray(ground).ravel()
+        cells = cells[self._can_be_wet(wse_top, label[cells], ground_flat[cells])]
+        idx = label[cells]
+        w_up, lowered = np.empty(cells.size), (None if self.lowering is None else np.empty(cells.size))
+        for start in range(0, cells.size, CHUNK_CELLS):
+            part = slice(start, start + CHUNK_CELLS)
+            w, low = self._weights(grid_transform, row_off, col_off, shape_rc[1], cells[part], idx[part])
+            w_up[part] = w
+            if lowered is not None:
+                lowered[part] = low
+        return SharedWeights(tuple(shape_rc), cells, idx, w_up, lowered, ground_flat[cells])
+
+    def interpolate_shared(self, share: "SharedWeights") -> np.ndarray:
+        """:meth:`interpolate` (with ``ground``) of this surface's values from ``share``."""
+        rows = self.values.shape[0] + (self.lowering is not None)
+        out = np.full((rows,) + share.shape, np.nan)
+        keep = self._can_be_wet(self.values[0], share.idx, share.ground)
+        idx, w_up = share.idx[keep], share.w_up[keep]
+        flat = out.reshape(rows, -1)
+        flat[:self.values.shape[0], share.cells[keep]] = w_up * self.values[:, idx] + (1.0 - w_up) * self.values[:, idx + 1]
+        if share.lowered is not None:
+            flat[-1, share.cells[keep]] = share.lowered[keep]
+        return out
+
+    def same_quads(self, other: "Surface") -> bool:
+        """True when ``other`` has the same quads (same sections, clip and wet pairs)."""
+        return self.index.shape == other.index.shape and bool(np.all(self.index == other.index))
 
 
     def _distance_to(self, x: np.ndarray, y: np.ndarray, which: np.ndarray) -> np.ndarray:
@@ -193,6 +242,18 @@ def block_bounds(grid_transform: Affine, row_off: int, col_off: int, shape_rc) -
     return min(xs), min(ys), max(xs), max(ys)
 
 
+@dataclass(frozen=True, eq=False)
+class SharedWeights:
+    """What several WSE profiles share on one block (:meth:`Surface.shared_weights`)."""
+
+    shape: tuple[int, int]
+    cells: np.ndarray          # flat indices of the cells that can be wet under the highest profile
+    idx: np.ndarray            # their quad index
+    w_up: np.ndarray           # weight of section idx
+    lowered: np.ndarray | None  # channel lowering at them (m)
+    ground: np.ndarray         # ground there (m)
+
+
 @dataclass(frozen=True)
 class Grid:
     """Output grid of a reach: DEM window ``dem_window``, coarsening ``factor``, block size."""
@@ -251,6 +312,39 @@ def compute_block(ctx, grid: Grid, win: Window) -> BlockData | None:
         return None
     ground = grid.read_ground(ctx.dem, win)
     vals = ctx.surface.interpolate(grid.transform, int(win.row_off), int(win.col_off), shape_rc, sel, ground=ground)
+    return _block_data(ctx, grid, win, box, ground, vals)
+
+
+def compute_blocks(ctxs: list, grid: Grid, win: Window) -> list:
+    """:func:`compute_block` of several contexts (WSE profiles of one reach on one grid) on one
+    block: the ground is read once, and contexts whose surfaces have the same quads share the
+    quad labels, weights and channel lowering (:meth:`Surface.shared_weights`). The same
+    BlockData, cell for cell, as :func:`compute_block` of each context."""
+    if len(ctxs) == 1:
+        return [compute_block(ctxs[0], grid, win)]
+    shape_rc = (int(win.height), int(win.width))
+    box = block_bounds(grid.transform, win.row_off, win.col_off, shape_rc)
+    sels = [c.surface.touching(*box) for c in ctxs]
+    out: list = [None] * len(ctxs)
+    todo = [k for k, sel in enumerate(sels) if sel.size]
+    if not todo:
+        return out
+    ground = grid.read_ground(ctxs[todo[0]].dem, win)
+    while todo:
+        lead = ctxs[todo[0]].surface
+        group = [k for k in todo if ctxs[k].surface.same_quads(lead)]
+        todo = [k for k in todo if k not in group]
+        top = np.max(np.stack([ctxs[k].surface.values[0] for k in group]), axis=0)
+        share = lead.shared_weights(grid.transform, int(win.row_off), int(win.col_off), shape_rc, sels[group[0]],
+                                    ground, top)
+        for k in group:
+            out[k] = _block_data(ctxs[k], grid, win, box, ground, ctxs[k].surface.interpolate_shared(share))
+    return out
+
+
+def _block_data(ctx, grid: Grid, win: Window, box, ground: np.ndarray, vals: np.ndarray) -> BlockData:
+    """Depth, wet labels, seeded labels (and velocity) of a block from its interpolated values."""
+    shape_rc = ground.shape
     if ctx.surface.lowering is not None:
         ground = ground - np.nan_to_num(vals[-1])       # the channel the sections use, below the DEM
     with np.errstate(invalid="ignore"):

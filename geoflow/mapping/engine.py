@@ -67,9 +67,10 @@ from .. import outputs
 from ..errors import ConfigError, GeometryError, RoughnessError
 from ..terrain import kept_open
 from .blocks import Grid, Surface
-from .join import run_blocks
+from .join import run_blocks, run_blocks_many
 
-__all__ = ["ReachMap", "MapSummary", "VelocityInputs", "map_reach", "write_reach_maps"]
+__all__ = ["ReachMap", "MapSummary", "MapJob", "VelocityInputs", "map_reach", "write_reach_maps",
+           "write_reach_maps_many"]
 
 PAD_CELLS = 3
 MAP_KINDS = ("wse", "depth", "velocity")
@@ -226,6 +227,18 @@ class _Sink:
             w(values, window)
 
 
+@dataclass(frozen=True, eq=False)
+class MapJob:
+    """One WSE profile of a reach to map with :func:`write_reach_maps_many`: the WSE at each
+    section (m), output paths by kind, velocity inputs and file metadata as in
+    :func:`write_reach_maps`."""
+
+    wse_at_section: np.ndarray
+    paths: dict
+    velocity: VelocityInputs | None = None
+    meta: dict | None = None
+
+
 def write_reach_maps(dem, geom, wse_at_section, paths: dict, cell_size: float | None = None, block: int = 2048,
                      velocity: VelocityInputs | None = None, pad: int = PAD_CELLS, clip=None,
                      meta: dict | None = None) -> MapSummary:
@@ -240,19 +253,35 @@ def write_reach_maps(dem, geom, wse_at_section, paths: dict, cell_size: float | 
     :func:`map_reach`; ``meta``: {kind: (tags, band description, unit)} written into each file.
     Returns a :class:`MapSummary`.
     """
-    paths = _check_paths(geom, paths, velocity)
-    meta = meta or {}
-    ctx, grid = _prepare(dem, geom, wse_at_section, cell_size, pad, block, velocity, clip)
+    return write_reach_maps_many(dem, geom, [MapJob(wse_at_section, paths, velocity, meta)], cell_size=cell_size,
+                                 block=block, pad=pad, clip=clip)[0]
+
+
+def write_reach_maps_many(dem, geom, jobs: list[MapJob], cell_size: float | None = None, block: int = 2048,
+                          pad: int = PAD_CELLS, clip=None) -> list[MapSummary]:
+    """:func:`write_reach_maps` of several WSE profiles of one reach (events, roughness cases) in
+    one pass over the reach's blocks: the DEM of each block is read once and the section
+    weights are computed once for the profiles that wet the same section pairs
+    (:func:`geoflow.mapping.join.run_blocks_many`). Each job's files and summary are the same as
+    :func:`write_reach_maps` gives for it alone; one block per job is in memory at a time."""
+    checked = [(_check_paths(geom, j.paths, j.velocity), j) for j in jobs]
+    prepared = [_prepare(dem, geom, j.wse_at_section, cell_size, pad, block, j.velocity, clip) for _, j in checked]
+    grid = prepared[0][1] if prepared else None
+    if grid is None:
+        return []
     rows, cols = grid.shape
     tile = 512 if min(rows, cols) >= 4096 else 256
     with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB * 1024 * 1024), contextlib.ExitStack() as stack:
         stack.enter_context(kept_open(dem))
-        writers = {k: stack.enter_context(outputs.block_raster_writer(p, cols, rows, grid.transform, dem.crs,
-                                                                      blocksize=tile, meta=meta.get(k)))
-                   for k, p in paths.items()}
-        res = run_blocks(ctx, grid, _Sink(writers))
-    return MapSummary(transform=grid.transform, crs=dem.crs, shape=grid.shape, extent=res.extent,
-                      wet_area_m2=res.wet_area_m2, max_depth=res.max_depth, paths=dict(paths))
+        sinks = [_Sink({k: stack.enter_context(outputs.block_raster_writer(p, cols, rows, grid.transform, dem.crs,
+                                                                           blocksize=tile,
+                                                                           meta=(j.meta or {}).get(k)))
+                        for k, p in paths.items()})
+                 for paths, j in checked]
+        results = run_blocks_many([ctx for ctx, _ in prepared], grid, sinks)
+    return [MapSummary(transform=grid.transform, crs=dem.crs, shape=grid.shape, extent=res.extent,
+                       wet_area_m2=res.wet_area_m2, max_depth=res.max_depth, paths=dict(paths))
+            for res, (paths, _) in zip(results, checked)]
 
 
 def _check_paths(geom, paths, velocity) -> dict:

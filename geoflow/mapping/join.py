@@ -44,7 +44,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from ..constants import MIN_OUTLINE_PART_CELLS
-from .blocks import BlockData, Grid, block_layers, compute_block
+from .blocks import BlockData, Grid, block_layers, compute_block, compute_blocks
 
 SMALL_POCKET = 4096          # pending ids up to this many cells are patched by their cells
 MIN_HOLE_CELLS = 4           # outline holes (dry islands) up to this many cells are filled
@@ -177,14 +177,27 @@ class EngineResult:
 
 def run_blocks(ctx, grid: Grid, sink) -> EngineResult:
     """Map a reach block by block into ``sink`` (``write(layers, window)``, ``clear(window, mask)``)."""
-    ledger = _Ledger()
+    return run_blocks_many([ctx], grid, [sink])[0]
+
+
+def run_blocks_many(ctxs: list, grid: Grid, sinks: list) -> list[EngineResult]:
+    """:func:`run_blocks` of several WSE profiles of one reach on one grid (``ctxs[k]`` into
+    ``sinks[k]``) in one pass over the blocks: each block's ground is read, and its quad labels
+    and weights computed, once for all (:func:`geoflow.mapping.blocks.compute_blocks`). The same
+    results as one :func:`run_blocks` per profile."""
+    ledgers = [_Ledger() for _ in ctxs]
     for bi, bj, win in grid.blocks():
-        data = compute_block(ctx, grid, win)
-        if data is None or data.count == 0:
-            continue
         inner = (bi > 0, win.row_off + win.height < grid.shape[0], bj > 0, win.col_off + win.width < grid.shape[1])
-        sink.write(block_layers(data, _record(ledger, (bi, bj), data, inner)), win)
-        _finish_inner_pieces(ledger, grid)
+        for data, ledger, sink in zip(compute_blocks(ctxs, grid, win), ledgers, sinks):
+            if data is None or data.count == 0:
+                continue
+            sink.write(block_layers(data, _record(ledger, (bi, bj), data, inner)), win)
+            _finish_inner_pieces(ledger, grid)
+    return [_result(ctx, grid, sink, ledger) for ctx, sink, ledger in zip(ctxs, sinks, ledgers)]
+
+
+def _result(ctx, grid: Grid, sink, ledger: _Ledger) -> EngineResult:
+    """Join the labels of one profile, patch its output, total it and outline it."""
     keep = join_labels(ledger)
     _patch(ctx, grid, sink, ledger, keep)
     ids = np.concatenate(ledger.pend_ids + [np.zeros(0, dtype=np.int64)])
