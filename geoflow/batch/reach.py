@@ -215,6 +215,7 @@ def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Ev
     solved alone so one bad event (e.g. a discharge outside a rating table) spares the others.
     ``downstream`` replaces the reach's downstream boundary (rating curves).
     """
+    _pack(tables)
     chainage = np.array([s.chainage for s in geom.sections])
     down, up = cfg.boundary.for_reach(geom.reach_id)
     down = downstream or down
@@ -235,6 +236,17 @@ def solve_events(cfg: Config, geom: ReachGeometry, tables: list, events: list[Ev
         except GeoflowError as exc:
             out[ev.name] = HydraulicsError(f"reach {geom.reach_id!r}, event {ev.name!r}: {exc}")
     return out
+
+
+def _pack(tables: list) -> None:
+    """Pack the level tables for the compiled kernel now (the solver reuses the pack) and give the
+    pages of the tables' own copies back: a long reach's tables are a few hundred MB, and glibc
+    would otherwise keep the freed copies while the solve allocates more."""
+    from ..hydraulics.packed import pack_reach, packable
+    from .tasks import release_memory
+    if tables and packable(tables):
+        pack_reach(tables)
+        release_memory()
 
 
 def solve_reach(cfg: Config, geom: ReachGeometry, events: list[Event] | None = None,

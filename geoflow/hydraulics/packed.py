@@ -10,9 +10,10 @@ kernel reads them as
     level_flow[s_off[i] + k]                       area, conveyance, alpha, part conveyance (3) at start k
     sub_part[p_off[i] + s]                         part code of subdivision s
 
-with L1_i = s_off[i+1] - s_off[i] and S_i = nsub[i]. Packing copies the tables once per reach;
-afterwards every table's ``lookup`` is re-pointed to views of the pack (the same values, so
-the numpy path is unchanged and memory is not doubled) and later calls on the same list of
+with L1_i = s_off[i+1] - s_off[i] and S_i = nsub[i]. Packing copies the tables once per reach,
+table by table, re-pointing each table's ``lookup`` to views of the pack as it goes (the same
+values, so the numpy path is unchanged, and memory is never doubled: each table's own
+coefficients are freed as soon as they are copied) and later calls on the same list of
 tables reuse the pack.
 """
 from __future__ import annotations
@@ -82,11 +83,19 @@ def _build(tables) -> Reach:
     nsub = np.array([lt.coef.shape[2] for lt in lts], dtype=np.int64)
     scalars = np.array([[t.thalweg, t.top, t.station[-1] - t.station[0], t.elevation[0],
                          t.elevation[-1]] for t in tables], dtype=float)
+    c_off = _offsets([lt.coef.size for lt in lts])
+    coef = np.empty(int(c_off[-1]))
+    for i, t in enumerate(tables):         # copy table by table, each table's own copy freed at once
+        own = t.lookup
+        coef[c_off[i]:c_off[i + 1]] = own.coef.ravel()
+        object.__setattr__(t, "lookup", LevelTable(own.start, coef[c_off[i]:c_off[i + 1]].reshape(own.coef.shape),
+                                                   own.to_part))
+    del lts
     return Reach(
-        start=np.concatenate([lt.start for lt in lts]),
-        s_off=_offsets([lt.start.size for lt in lts]),
-        coef=np.concatenate([lt.coef.ravel() for lt in lts]),
-        c_off=_offsets([lt.coef.size for lt in lts]),
+        start=np.concatenate([t.lookup.start for t in tables]),
+        s_off=_offsets([t.lookup.start.size for t in tables]),
+        coef=coef,
+        c_off=c_off,
         nsub=nsub,
         sub_part=np.concatenate([t.subdivision_part for t in tables]).astype(np.int64),
         p_off=_offsets(nsub),
