@@ -154,10 +154,13 @@ def validate(config: str | Path | Config, others: tuple = (), keep_stations: flo
 def check_geometry(cfg: Config, inputs: Inputs, rid: str, keep: bool = False) -> tuple:
     """(reach id, problem or None, ReachSummary or None[, geometry]): sections cut, n given,
     boundary levels checked against the end sections' ground; the geometry only with ``keep``."""
+    from .tasks import release_memory
     try:
         geom = reach.build_geometry(cfg, inputs, rid, inputs.line_of(rid))
     except GeoflowError as exc:
         return (rid, str(exc), None) + ((None,) if keep else ())
+    finally:
+        release_memory()        # cutting a long valley's sections peaks at a few hundred MB of temporaries
     level = boundary_level_problems(cfg, rid, _end_ground(geom), _end_discharges(cfg, rid, geom))
     built = _structure_problems(cfg, geom)
     if level or built:

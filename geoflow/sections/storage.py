@@ -28,7 +28,7 @@ from .common import points_along, sample_many
 
 BLOCK_M = 0.5             # a ridge this much higher than both ends of a flow path blocks it
 PROBE_STEPS = 2           # flow paths start every this many sample steps along a section
-RAY_CHUNK = 20_000        # flow paths sampled together (bounds memory on long reaches)
+RAY_CHUNK = 5_000         # flow paths sampled together (bounds memory on long reaches: ~60 MB at 1 m steps)
 
 
 def mark_storage(geom: ReachGeometry, dem=None, areas=None, detect: bool = True,
