@@ -180,6 +180,29 @@ def test_points_along_a_line_equal_shapely_exactly():
         np.testing.assert_array_equal(points_along(line, d), ref)
 
 
+def test_locating_points_along_a_line_equals_shapely_exactly():
+    # Reference: shapely.line_locate_point (GEOS), bit for bit, on random polylines with repeated
+    # vertices and tight zig-zags (points equally near two segments: the first must win), points
+    # at vertices, beyond both ends and far from the line.
+    import shapely
+
+    from geoflow.sections.common import locate_along
+    rng = np.random.default_rng(7)
+    for k in range(60):
+        n = int(rng.integers(2, 120))
+        xy = np.cumsum(rng.normal(size=(n, 2)) * rng.uniform(0.1, 50.0), axis=0) + [3e5, 5.2e6]
+        if k % 3 == 0 and n > 3:
+            xy[2] = xy[1]
+        if k % 4 == 1:                                    # a zig-zag of equal legs
+            xy = np.column_stack((np.arange(n) * 10.0, np.where(np.arange(n) % 2, 10.0, 0.0))) + [3e5, 5.2e6]
+        line = shapely.LineString(xy)
+        lo, hi = xy.min(axis=0) - 30.0, xy.max(axis=0) + 30.0
+        pts = np.vstack([rng.uniform(lo, hi, size=(300, 2)), xy, [xy.mean(axis=0)],
+                         xy[:-1] + 0.5 * np.diff(xy, axis=0) + [0.0, 5.0]])
+        ref = shapely.line_locate_point(line, shapely.points(pts))
+        np.testing.assert_array_equal(locate_along(line, pts), ref)
+
+
 def test_in_place_distances_to_dog_leg_sections_equal_the_plain_expression():
     # Reference: point_polyline_distance (the plain numpy expression, checked against shapely in
     # tests/test_mapping.py), bit for bit, on sections of one to three straight pieces.

@@ -24,7 +24,7 @@ import numpy as np
 import shapely
 
 from ..records import CHANNEL, ReachGeometry
-from .common import points_along, sample_many
+from .common import locate_along, points_along, sample_many
 
 BLOCK_M = 0.5             # a ridge this much higher than both ends of a flow path blocks it
 PROBE_STEPS = 2           # flow paths start every this many sample steps along a section
@@ -70,7 +70,7 @@ def _direction(geom: ReachGeometry, xy: np.ndarray) -> np.ndarray:
     """Unit down-valley direction at points (the valley axis, else the centreline), (K, 2)."""
     ref = geom.valley_axis if geom.valley_axis is not None else geom.centreline
     length = float(ref.length)
-    u = shapely.line_locate_point(ref, shapely.points(xy))
+    u = locate_along(ref, xy)
     h = max(1.0, 0.005 * length)
     a = points_along(ref, np.clip(u - h, 0, length))
     b = points_along(ref, np.clip(u + h, 0, length))

@@ -35,6 +35,8 @@ import numpy as np
 import shapely
 from shapely.geometry import Polygon
 
+from .common import points_along
+
 BISECT_STEPS = 12           # refinement of each cut point: a sample step / 4096
 
 
@@ -229,7 +231,7 @@ def own_reach_end(territory: Territory, who: int, line, step: float, drafting: b
     length = float(line.length)
     s = np.arange(0.0, length + step, step)
     s[-1] = min(s[-1], length)
-    xy = shapely.get_coordinates(shapely.line_interpolate_point(line, s))
+    xy = points_along(line, s)
     own = territory.owns(who, xy, drafting)
     if own.all():
         return length
@@ -239,6 +241,6 @@ def own_reach_end(territory: Territory, who: int, line, step: float, drafting: b
     lo, hi = s[first - 1], s[first]
     for _ in range(BISECT_STEPS):
         mid = 0.5 * (lo + hi)
-        p = shapely.get_coordinates(shapely.line_interpolate_point(line, [mid]))
+        p = points_along(line, [mid])
         lo, hi = (mid, hi) if territory.owns(who, p, drafting)[0] else (lo, mid)
     return float(lo)

@@ -36,7 +36,7 @@ import numpy as np
 import shapely
 from shapely.geometry import LineString
 
-from .common import points_along
+from .common import locate_along, points_along
 
 HYSTERESIS_DEG = 8.0          # a heading extreme counts once the line has turned back by this much
 MAX_SAMPLES = 20_000          # resampling points along the centreline (at most)
@@ -57,7 +57,7 @@ class Valley:
         The normal points to the left of the valley direction looking downstream; ``h`` is the
         half-length of the chord that gives the axis direction (default: a twentieth of sigma).
         """
-        u = shapely.line_locate_point(self.axis, shapely.points(points))
+        u = locate_along(self.axis, points)
         length = float(self.axis.length)
         h = max(0.05 * self.sigma, 1e-3 * length) if h is None else float(h)
         a = points_along(self.axis, np.clip(u - h, 0.0, length))
