@@ -140,3 +140,34 @@ def test_storage_behind_an_embankment_and_in_a_user_polygon():
     user = mark_storage(geom, None, areas=[box(-10, 60, 10, 120)], detect=False)
     np.testing.assert_array_equal(user.sections[0].storage, mid_y > 60)
     assert user.sections[1].storage is None
+
+
+def test_territory_owner_near_a_reach_equals_measuring_every_reach():
+    # Reference: the rule evaluated with every centreline measured (owner without a hint); the
+    # pruned evaluation (hint: the reach being cut, only reaches that could beat it measured) must
+    # give the same owner for every point, drafting included, on a random network of meandering
+    # reaches, tributaries, channels and footprints.
+    rng = np.random.default_rng(3)
+    reaches, scales, chan, flows, half = [], {}, [], {}, {}
+    t = np.linspace(0.0, 1.0, 200)
+    for k in range(12):
+        x0, y0 = rng.uniform(0, 4000, 2)
+        ang = rng.uniform(0, np.pi)
+        ln = LineString(np.column_stack((x0 + 2000 * t * np.cos(ang) + 80 * np.sin(20 * t),
+                                         y0 + 2000 * t * np.sin(ang) + 80 * np.cos(17 * t))))
+        rid = f"r{k}"
+        reaches.append((rid, ln))
+        scales[rid] = float(rng.choice([40.0, 150.0, 400.0]))
+        half[rid] = float(rng.uniform(3, 15))
+        chan.append(ln.buffer(half[rid], cap_style="flat"))
+        if k % 3 == 2:
+            flows[rid] = f"r{k - 1}"
+    terr = make_territory(reaches, scales, chan, flows, half)
+    terr = terr.with_footprint(2, [LineString([(x - 60, y), (x + 60, y)])
+                                   for x, y in shapely.get_coordinates(reaches[2][1])[::40]])
+    for who in range(12):
+        line = reaches[who][1]
+        xy = shapely.get_coordinates(line)[::5] + rng.normal(scale=scales[reaches[who][0]], size=(40, 2))
+        xy = np.vstack([xy, rng.uniform(-500, 6500, size=(400, 2))])
+        for drafting in (None, who):
+            np.testing.assert_array_equal(terr.owner(xy, drafting, hint=who), terr.owner(xy, drafting))

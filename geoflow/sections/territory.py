@@ -56,35 +56,82 @@ class Territory:
     def index(self, reach_id: str) -> int:
         return self.names.index(str(reach_id))
 
-    def owner(self, xy: np.ndarray, drafting: int | None = None) -> np.ndarray:
+    def owner(self, xy: np.ndarray, drafting: int | None = None, hint: int | None = None) -> np.ndarray:
         """Index of the reach owning each point (K, 2) by the rule of the module notes.
 
         ``drafting``: a tributary whose own footprint is being drawn: the reach it flows into then
-        claims only its channel and banks (rules 1-2), not its floodplain (rule 4).
+        claims only its channel and banks (rules 1-2), not its floodplain (rule 4). ``hint``: a
+        reach the points are expected to be near (the reach whose sections are being cut): only
+        the reaches that could beat it are then measured (:meth:`_distances`); the same answer.
         """
         xy = np.asarray(xy, dtype=float).reshape(-1, 2)
-        pts = shapely.points(xy)
-        dist = np.stack([tree.query_nearest(pts, return_distance=True, all_matches=False)[1]
-                         for tree in self._trees()], axis=1)
+        if len(self.names) == 1:
+            return np.zeros(len(xy), dtype=np.int64)
         skip = np.zeros(len(self.names), dtype=bool)
         if drafting is not None and self.receiving[drafting] >= 0:
             skip[self.receiving[drafting]] = True
+        inside = {pick: _inside(polys, xy, self._boxes(pick)) for polys, pick in
+                  ((self.footprints, "first"), (self.banks, "nearest"), (self.zones, "rank"))}
+        dist = self._distances(xy, hint, skip, inside["nearest"] | inside["rank"])
         near = np.argmin(np.where(skip[None, :], np.inf, dist / self.scales[None, :]), axis=1)
-        for polys, pick in ((self.footprints, "first"), (self.banks, "nearest"), (self.zones, "rank")):
-            inside = _inside(polys, xy)
-            if not inside.any():
+        for pick in ("first", "nearest", "rank"):
+            ins = inside[pick]
+            if not ins.any():
                 continue
             if pick == "nearest":
-                best = np.argmin(np.where(inside, dist, np.inf), axis=1)
+                best = np.argmin(np.where(ins, dist, np.inf), axis=1)
             elif pick == "first":
-                best = np.argmax(inside, axis=1)
+                best = np.argmax(ins, axis=1)
             else:                                        # highest rank; among equals, the nearest
-                best = np.argmax(np.where(inside, self.rank[None, :] * 1e12 - dist, -np.inf), axis=1)
-            near = np.where(inside.any(axis=1), best, near)
+                best = np.argmax(np.where(ins, self.rank[None, :] * 1e12 - dist, -np.inf), axis=1)
+            near = np.where(ins.any(axis=1), best, near)
         return near
 
+    def _distances(self, xy: np.ndarray, hint: int | None, skip: np.ndarray, needed: np.ndarray) -> np.ndarray:
+        """(K, R) distance from each point to each centreline, exact wherever it can decide the owner.
+
+        Without ``hint`` every distance is measured. With it, the hint reach's distances d_h give
+        each point a bound: a reach r can have d_r / s_r <= d_h / s_h only if its centreline's
+        bounding box lies within (d_h / s_h) s_r of the point, so only those reaches (and those
+        whose channel or bank holds the point, ``needed``) are measured; the others are left at
+        +inf, where their true ratio is larger than the hint's and never the least.
+        """
+        pts = shapely.points(xy)
+        trees = self._trees()
+        if hint is None:
+            return np.stack([tree.query_nearest(pts, return_distance=True, all_matches=False)[1]
+                             for tree in trees], axis=1)
+        dist = np.full((len(xy), len(trees)), np.inf)
+        dist[:, hint] = trees[hint].query_nearest(pts, return_distance=True, all_matches=False)[1]
+        ratio = dist[:, hint] / self.scales[hint]
+        box = self._line_boxes()
+        for r, tree in enumerate(trees):
+            if r == hint:
+                continue
+            gx = np.maximum(np.maximum(box[r, 0] - xy[:, 0], xy[:, 0] - box[r, 2]), 0.0)
+            gy = np.maximum(np.maximum(box[r, 1] - xy[:, 1], xy[:, 1] - box[r, 3]), 0.0)
+            want = needed[:, r] | (~skip[r] & (np.hypot(gx, gy) <= ratio * self.scales[r]))
+            if want.any():
+                dist[want, r] = tree.query_nearest(pts[want], return_distance=True, all_matches=False)[1]
+        return dist
+
+    def _line_boxes(self) -> np.ndarray:
+        boxes = self.__dict__.get("_line_bounds")
+        if boxes is None:
+            boxes = shapely.bounds(self.lines)
+            object.__setattr__(self, "_line_bounds", boxes)
+        return boxes
+
+    def _boxes(self, pick: str) -> np.ndarray:
+        """Bounds (R, 4) of the footprints ("first"), banks ("nearest") or channels ("rank")."""
+        cache = self.__dict__.setdefault("_poly_bounds", {})
+        if pick not in cache:
+            polys = {"first": self.footprints, "nearest": self.banks, "rank": self.zones}[pick]
+            cache[pick] = shapely.bounds(polys)
+        return cache[pick]
+
     def owns(self, who: int, xy: np.ndarray, drafting: bool = False) -> np.ndarray:
-        return self.owner(xy, who if drafting else None) == who
+        return self.owner(xy, who if drafting else None, hint=who) == who
 
     def other_channels(self, who: int):
         """The channels and banks of the other reaches, outside the channels that outrank them: one geometry."""
@@ -132,10 +179,20 @@ class Territory:
         return trees
 
 
-def _inside(polys: np.ndarray, xy: np.ndarray) -> np.ndarray:
-    """(K, R) whether each point lies in each polygon."""
-    return np.stack([shapely.contains_xy(z, xy[:, 0], xy[:, 1]) if not z.is_empty
-                     else np.zeros(len(xy), dtype=bool) for z in polys], axis=1)
+def _inside(polys: np.ndarray, xy: np.ndarray, boxes: np.ndarray | None = None) -> np.ndarray:
+    """(K, R) whether each point lies in each polygon (tested only inside the polygon's ``boxes``)."""
+    out = np.zeros((len(xy), len(polys)), dtype=bool)
+    for r, z in enumerate(polys):
+        if z.is_empty:
+            continue
+        if boxes is None:
+            out[:, r] = shapely.contains_xy(z, xy[:, 0], xy[:, 1])
+            continue
+        b = boxes[r]
+        cand = np.flatnonzero((xy[:, 0] >= b[0]) & (xy[:, 0] <= b[2]) & (xy[:, 1] >= b[1]) & (xy[:, 1] <= b[3]))
+        if cand.size:
+            out[cand, r] = shapely.contains_xy(z, xy[cand, 0], xy[cand, 1])
+    return out
 
 
 def make_territory(reaches, scales: dict, channel_polygons=None, flows_into: dict | None = None,
