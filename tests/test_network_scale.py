@@ -161,6 +161,15 @@ def test_reports_from_the_report_process_equal_inline_ones(tmp_path, monkeypatch
     assert (again.output_dir / "report" / "index.html").is_file()
 
 
+def _random_polyline(rng, k: int, most: int) -> np.ndarray:
+    """(n, 2) vertices of a random walk in projected metres; every third one repeats a vertex."""
+    n = int(rng.integers(2, most))
+    xy = np.cumsum(rng.normal(size=(n, 2)) * rng.uniform(0.1, 50.0), axis=0) + [3e5, 5.2e6]
+    if k % 3 == 0 and n > 3:
+        xy[2] = xy[1]
+    return xy
+
+
 def test_points_along_a_line_equal_shapely_exactly():
     # Reference: shapely.line_interpolate_point (GEOS), bit for bit, on random polylines with
     # repeated vertices, points at vertices, at both ends and beyond the end.
@@ -169,10 +178,8 @@ def test_points_along_a_line_equal_shapely_exactly():
     from geoflow.sections.common import points_along
     rng = np.random.default_rng(5)
     for k in range(60):
-        n = int(rng.integers(2, 80))
-        xy = np.cumsum(rng.normal(size=(n, 2)) * rng.uniform(0.1, 50.0), axis=0) + [3e5, 5.2e6]
-        if k % 3 == 0 and n > 3:
-            xy[2] = xy[1]
+        xy = _random_polyline(rng, k, 80)
+        n = len(xy)
         line = shapely.LineString(xy)
         at_vertices = np.cumsum(np.hypot(*np.diff(xy, axis=0).T))[: min(5, n - 1)]
         d = np.concatenate([rng.uniform(0.0, line.length, 40), [0.0, line.length, line.length + 3.0], at_vertices])
@@ -189,10 +196,8 @@ def test_locating_points_along_a_line_equals_shapely_exactly():
     from geoflow.sections.common import locate_along
     rng = np.random.default_rng(7)
     for k in range(60):
-        n = int(rng.integers(2, 120))
-        xy = np.cumsum(rng.normal(size=(n, 2)) * rng.uniform(0.1, 50.0), axis=0) + [3e5, 5.2e6]
-        if k % 3 == 0 and n > 3:
-            xy[2] = xy[1]
+        xy = _random_polyline(rng, k, 120)
+        n = len(xy)
         if k % 4 == 1:                                    # a zig-zag of equal legs
             xy = np.column_stack((np.arange(n) * 10.0, np.where(np.arange(n) % 2, 10.0, 0.0))) + [3e5, 5.2e6]
         line = shapely.LineString(xy)
