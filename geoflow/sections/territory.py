@@ -90,11 +90,14 @@ class Territory:
     def _distances(self, xy: np.ndarray, hint: int | None, skip: np.ndarray, needed: np.ndarray) -> np.ndarray:
         """(K, R) distance from each point to each centreline, exact wherever it can decide the owner.
 
-        Without ``hint`` every distance is measured. With it, the hint reach's distances d_h give
-        each point a bound: a reach r can have d_r / s_r <= d_h / s_h only if its centreline's
-        bounding box lies within (d_h / s_h) s_r of the point, so only those reaches (and those
-        whose channel or bank holds the point, ``needed``) are measured; the others are left at
-        +inf, where their true ratio is larger than the hint's and never the least.
+        Without ``hint`` every distance is measured. With it, an upper bound u_h of the hint reach's
+        distance (to the nearest of points spaced along its centreline, a k-d tree query) gives each
+        point a bound: a reach r can have d_r / s_r <= d_h / s_h only if its centreline's bounding
+        box lies within (u_h / s_h) s_r of the point, so only those reaches (and those whose
+        channel or bank holds the point, ``needed``) are measured; the others are left at +inf,
+        where their true ratio is larger than the hint's and never the least. The hint's own
+        distance is measured only at points where another reach is: elsewhere every other reach is
+        +inf and the hint owns the point whatever its distance (u_h is kept there).
         """
         pts = shapely.points(xy)
         trees = self._trees()
@@ -102,9 +105,10 @@ class Territory:
             return np.stack([tree.query_nearest(pts, return_distance=True, all_matches=False)[1]
                              for tree in trees], axis=1)
         dist = np.full((len(xy), len(trees)), np.inf)
-        dist[:, hint] = trees[hint].query_nearest(pts, return_distance=True, all_matches=False)[1]
-        ratio = dist[:, hint] / self.scales[hint]
+        upper = self._sample_trees()[hint].query(xy, k=1)[0]
+        ratio = upper / self.scales[hint]
         box = self._line_boxes()
+        contested = np.zeros(len(xy), dtype=bool)
         for r, tree in enumerate(trees):
             if r == hint:
                 continue
@@ -113,7 +117,31 @@ class Territory:
             want = needed[:, r] | (~skip[r] & (np.hypot(gx, gy) <= ratio * self.scales[r]))
             if want.any():
                 dist[want, r] = tree.query_nearest(pts[want], return_distance=True, all_matches=False)[1]
+                contested |= want
+        dist[:, hint] = upper
+        if contested.any():
+            dist[contested, hint] = trees[hint].query_nearest(pts[contested], return_distance=True,
+                                                              all_matches=False)[1]
         return dist
+
+    def _sample_trees(self) -> list:
+        """Per centreline, a k-d tree (scipy) of its vertices and of points at most twice its median
+        segment length apart along it: the distance to the nearest is an upper bound of the
+        distance to the line."""
+        trees = self.__dict__.get("_point_trees")
+        if trees is None:
+            from scipy.spatial import cKDTree
+            trees = []
+            for g in self.lines:
+                c = shapely.get_coordinates(g)
+                step = np.hypot(*np.diff(c, axis=0).T)
+                spacing = 2.0 * float(np.median(step)) if step.size else 1.0
+                if step.size and spacing > 0 and step.max() > spacing:
+                    c = points_along(g, np.linspace(0.0, g.length, int(np.ceil(g.length / spacing)) + 1))
+                    c = np.vstack([c, shapely.get_coordinates(g)])
+                trees.append(cKDTree(c))
+            object.__setattr__(self, "_point_trees", trees)
+        return trees
 
     def _line_boxes(self) -> np.ndarray:
         boxes = self.__dict__.get("_line_bounds")
