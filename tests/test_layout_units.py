@@ -171,3 +171,32 @@ def test_territory_owner_near_a_reach_equals_measuring_every_reach():
         xy = np.vstack([xy, rng.uniform(-500, 6500, size=(400, 2))])
         for drafting in (None, who):
             np.testing.assert_array_equal(terr.owner(xy, drafting, hint=who), terr.owner(xy, drafting))
+
+
+def test_first_crossing_of_flow_paths_equals_shapely_intersection():
+    # Reference: shapely.intersection (GEOS) of each flow path with its neighbour section, then
+    # shapely.distance from the path's start to the intersection; random paths and random
+    # polylines of 2-5 vertices, some through the path's start (distance 0). Paths lying exactly
+    # along a target piece are left out: there the answer depends on rounding in both.
+    import shapely
+
+    from geoflow.sections.storage import first_crossing
+    rng = np.random.default_rng(11)
+    k = 4000
+    xy = rng.uniform(-50.0, 50.0, (k, 2)) + [4e5, 6.1e6]
+    t = rng.normal(size=(k, 2))
+    ray = t / np.hypot(t[:, 0], t[:, 1])[:, None] * rng.uniform(10.0, 120.0, (k, 1))
+    targets = []
+    for i in range(k):
+        c = np.cumsum(rng.normal(size=(int(rng.integers(2, 6)), 2)) * 30.0, axis=0) + [4e5, 6.1e6]
+        if i % 37 == 0:
+            c = np.array([xy[i], xy[i] + [3.0, -4.0]])
+        targets.append(shapely.LineString(c))
+    targets = np.array(targets, dtype=object)
+    ok, dist = first_crossing(xy, ray, targets)
+    hits = shapely.intersection(shapely.linestrings(np.stack((xy, xy + ray), axis=1)), targets)
+    ref_ok = ~shapely.is_empty(hits)
+    ref = np.where(ref_ok, shapely.distance(shapely.points(xy), hits), 0.0)
+    assert ref_ok.sum() > 300
+    np.testing.assert_array_equal(ok, ref_ok)
+    np.testing.assert_allclose(dist, ref, rtol=0, atol=1e-8)      # GEOS rounds its crossing points at ~1e-9 m here

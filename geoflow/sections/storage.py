@@ -63,7 +63,7 @@ def mark_storage(geom: ReachGeometry, dem=None, areas=None, detect: bool = True,
 
 def _segment_midpoints(sec) -> np.ndarray:
     mid = 0.5 * (sec.station[:-1] + sec.station[1:]) * (sec.line.length / sec.station[-1])
-    return shapely.get_coordinates(shapely.line_interpolate_point(sec.line, mid))
+    return points_along(sec.line, mid)
 
 
 def _direction(geom: ReachGeometry, xy: np.ndarray) -> np.ndarray:
@@ -123,6 +123,45 @@ def _blocked_paths(geom: ReachGeometry, mids: list, dem, step: float) -> list[np
     return out
 
 
+def first_crossing(xy: np.ndarray, ray: np.ndarray, target) -> tuple[np.ndarray, np.ndarray]:
+    """Whether each segment xy -> xy + ray (K, 2) meets its polyline ``target`` (K geometries)
+    and the distance from xy to the nearest common point (0 where they do not meet).
+
+    The distance from xy to ``shapely.intersection(segment, target)``, solved for every piece of
+    the targets at once (padded to the longest): the crossing with a piece A -> B at
+    xy + u ray = A + v (B - A), 0 <= u, v <= 1; a piece on the same line as the segment meets it
+    where their spans overlap. Instead of one GEOS overlay per ray.
+    """
+    coords, which = shapely.get_coordinates(target, return_index=True)
+    k = len(xy)
+    if coords.size == 0:
+        return np.zeros(k, dtype=bool), np.zeros(k)
+    count = np.bincount(which, minlength=k)
+    first = np.concatenate(([0], np.cumsum(count)[:-1]))
+    m = max(int(count.max()) - 1, 1)
+    j = np.arange(m)[None, :]
+    valid = j < (count - 1)[:, None]                                         # (K, m) pieces
+    ia = np.minimum(first[:, None] + j, len(coords) - 1)
+    ib = np.minimum(ia + 1, len(coords) - 1)
+    a, e = coords[ia], coords[ib] - coords[ia]                               # (K, m, 2)
+    d = ray[:, None, :]
+    w = a - xy[:, None, :]
+    denom = d[..., 0] * e[..., 1] - d[..., 1] * e[..., 0]
+    cross_wd = w[..., 0] * d[..., 1] - w[..., 1] * d[..., 0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        u = (w[..., 0] * e[..., 1] - w[..., 1] * e[..., 0]) / denom
+        v = cross_wd / denom
+        meets = valid & (denom != 0) & (u >= 0) & (u <= 1) & (v >= 0) & (v <= 1)
+        dd = (d[..., 0] * d[..., 0] + d[..., 1] * d[..., 1])
+        ua = (w[..., 0] * d[..., 0] + w[..., 1] * d[..., 1]) / dd              # A and B along the ray
+        ub = ua + (e[..., 0] * d[..., 0] + e[..., 1] * d[..., 1]) / dd
+    lo, hi = np.maximum(np.minimum(ua, ub), 0.0), np.minimum(np.maximum(ua, ub), 1.0)
+    along = valid & (denom == 0) & (cross_wd == 0) & (lo <= hi)
+    u = np.where(meets, u, np.where(along, lo, np.inf)).min(axis=1)
+    ok = np.isfinite(u)
+    return ok, np.where(ok, u, 0.0) * np.sqrt(ray[:, 0] ** 2 + ray[:, 1] ** 2)
+
+
 def ridge_between(xy: np.ndarray, t: np.ndarray, target, reach: float, dem, step: float) -> np.ndarray:
     """Whether the straight path from each point along ``t`` to ``target`` (within ``reach`` m)
     crosses ground more than BLOCK_M above both of its ends (sampled every ``step`` m)."""
@@ -131,10 +170,7 @@ def ridge_between(xy: np.ndarray, t: np.ndarray, target, reach: float, dem, step
     if len(xy) > RAY_CHUNK:          # each ray on its own: chunks bound the (rays x samples) arrays
         return np.concatenate([ridge_between(xy[k:k + RAY_CHUNK], t[k:k + RAY_CHUNK], target[k:k + RAY_CHUNK],
                                              reach, dem, step) for k in range(0, len(xy), RAY_CHUNK)])
-    rays = shapely.linestrings(np.stack((xy, xy + reach * t), axis=1))
-    hits = shapely.intersection(rays, target)
-    ok = ~shapely.is_empty(hits)
-    dist = np.where(ok, shapely.distance(shapely.points(xy), hits), 0.0)
+    ok, dist = first_crossing(xy, reach * t, target)
     n = max(int(np.ceil(reach / step)), 2) + 1
     f = np.linspace(0.0, 1.0, n)
     px = xy[:, 0, None] + (dist[:, None] * f[None, :]) * t[:, 0, None]
