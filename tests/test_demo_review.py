@@ -58,8 +58,10 @@ def test_every_flagged_section_is_plotted_and_every_flag_word_explained(demo):
         flagged = {int(r["section_id"]) for r in rows if r["reach_id"] == rid and r["flags"]}
         words = {w for r in rows if r["reach_id"] == rid for w in r["flags"].split(";") if w}
         page = parse(out / "report" / f"{safe_name(rid)}.html")
-        plotted = {i["figure"] for i in page.imgs if (i["figure"] or "").startswith("section-")}
-        assert plotted == {f"section-{s}" for s in flagged}, rid
+        plotted = {int(i["figure"][8:]) for i in page.imgs if (i["figure"] or "").startswith("section-")}
+        for tiles in [i for i in page.imgs if (i["figure"] or "").startswith("sections-")]:
+            plotted |= {int(s) for s in tiles["alt"].removeprefix("cross-sections ").split(", ")}
+        assert plotted == flagged, rid
         assert flagged, "the demo has flagged sections on every reach"
         for w in words:
             entry = describe(w)

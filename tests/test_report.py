@@ -143,12 +143,16 @@ def test_map_image_and_every_flagged_section_plotted(report):
     _, page = report
     maps = [i for i in page.imgs if i["alt"].startswith("map")]
     assert len(maps) == 1 and png(maps[0]).shape[1] > 800
-    for sid in FLAGGED:
+    review, notes = [2], [4]              # 4 carries an info flag only: drawn as a tile
+    for sid in review:
         figs = [i for i in page.imgs if i["figure"] == f"section-{sid}"]
         assert len(figs) == 1 and f"cross-section {sid}" in figs[0]["alt"], sid
         assert png(figs[0]).shape[0] > 200
     assert {i["figure"] for i in page.imgs if (i["figure"] or "").startswith("section-")} == \
-        {f"section-{s}" for s in FLAGGED}
+        {f"section-{s}" for s in review}
+    tiles = [i for i in page.imgs if i["figure"] == "sections-noted-more"]
+    assert len(tiles) == 1 and tiles[0]["alt"] == "cross-sections " + ", ".join(map(str, notes))
+    assert png(tiles[0]).shape[0] > 150
     assert any(i["alt"] == "all cross-sections" for i in page.imgs)
 
 

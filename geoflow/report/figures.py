@@ -15,6 +15,7 @@ from .markup import FLAG_COLOUR, NOTE_COLOUR, event_colour
 
 GROUND = "#8c6d46"
 WATER = "#cfe6f7"
+STORAGE_COLOUR = "#555555"
 
 
 def channel_edge_ground(section) -> tuple[float, float]:
@@ -103,6 +104,17 @@ def _n_runs(section):
     return [(st[a], st[b], n[a]) for a, b in zip(starts, ends)]
 
 
+def _storage_runs(section, x0: float, x1: float) -> list[tuple[float, float]]:
+    """(start, end) stations of runs of storage segments, clipped to [x0, x1]."""
+    storage = getattr(section, "storage", None)
+    if storage is None or not np.any(storage):
+        return []
+    st, mask = np.asarray(section.station, dtype=float), np.asarray(storage, dtype=bool)
+    edges = np.flatnonzero(np.diff(np.concatenate(([False], mask, [False])).astype(np.int8)))
+    runs = [(max(st[a], x0), min(st[b], x1)) for a, b in zip(edges[::2], edges[1::2])]
+    return [(a, b) for a, b in runs if b > a]
+
+
 def _storage_hatch(ax, section, fine, zf, level: dict) -> None:
     """Hatch the water over storage segments (they hold water but carry no flow)."""
     storage = getattr(section, "storage", None)
@@ -172,8 +184,9 @@ def section_grid_figure(sections, profile: pd.DataFrame, events, flagged=(), col
                         noted=()) -> Figure:
     """Every section as a small tile zoomed to its wet part, in one Axes (fast to draw).
 
-    Each tile has its own scales (ground brown, water per event; tiles to review framed red, with
-    notes only purple) and carries the section number (chainages and depths are in the page's table).
+    Each tile has its own scales (ground brown, water per event, a dark bar along the bottom under
+    storage; tiles to review framed red, with notes only purple) and carries the section number
+    (chainages and depths are in the page's table).
     """
     secs = list(sections)
     rows_n = int(np.ceil(len(secs) / columns))
@@ -183,7 +196,7 @@ def section_grid_figure(sections, profile: pd.DataFrame, events, flagged=(), col
     ax.set_axis_off()
     levels = profile.pivot_table(index="section_id", columns="event", values="wse_m", aggfunc="first")
     levels = levels.reindex(index=[s.section_id for s in secs], columns=list(events)).to_numpy(dtype=float)
-    ground, frames, flag_frames, note_frames, water_polys = [], [], [], [], []
+    ground, frames, flag_frames, note_frames, water_polys, storage_bars = [], [], [], [], [], []
     lines = {i: [] for i in range(len(events))}
     for k, s in enumerate(secs):
         col, row = k % columns, rows_n - 1 - k // columns
@@ -196,7 +209,8 @@ def section_grid_figure(sections, profile: pd.DataFrame, events, flagged=(), col
         def tx(x, y, col=col, row=row, x0=x0, x1=x1, y0=y0, y1=y1):
             return col + 0.04 + 0.92 * (x - x0) / (x1 - x0), row + 0.04 + 0.70 * (y - y0) / (y1 - y0)
 
-        ground.append(np.column_stack(tx(fine, zf)))
+        ground.append(np.column_stack(tx(fine, np.clip(zf, y0, y1))))      # ground above the view stays in its tile
+        storage_bars += [[tx(a, y0), tx(b, y0)] for a, b in _storage_runs(s, x0, x1)]
         top = max([v for v in level if np.isfinite(v)], default=np.nan)
         if np.isfinite(top):
             under = np.minimum(zf, top)
@@ -217,6 +231,7 @@ def section_grid_figure(sections, profile: pd.DataFrame, events, flagged=(), col
     ax.add_collection(LineCollection(ground, colors=GROUND, linewidths=1.0))
     for i, segs in lines.items():
         ax.add_collection(LineCollection(segs, colors=event_colour(i), linewidths=1.0))
+    ax.add_collection(LineCollection(storage_bars, colors=STORAGE_COLOUR, linewidths=3.0))
     ax.add_collection(LineCollection(frames, colors="#bbbbbb", linewidths=0.6))
     ax.add_collection(LineCollection(note_frames, colors=NOTE_COLOUR, linewidths=1.2))
     ax.add_collection(LineCollection(flag_frames, colors=FLAG_COLOUR, linewidths=1.6))

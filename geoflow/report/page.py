@@ -47,8 +47,10 @@ class ReachContext:
     index: str | None = None
 
 
-#: flagged sections drawn as full figures; any beyond are drawn together as larger tiles (one image)
-MAX_FLAGGED_FIGURES = 40
+#: sections to review drawn as full figures (ticks, n strip); any beyond, and every section with
+#: notes only (how geoflow built it, nothing to judge), are drawn together as larger tiles in one
+#: image: a full figure costs about as much to draw as the whole tile image
+MAX_FLAGGED_FIGURES = 24
 
 
 def _why(words: dict) -> str:
@@ -75,7 +77,8 @@ def _flagged_figures(geom, df, events, flagged: dict, cls: str, budget: int, fig
     if rest:
         tiles = section_grid_figure([by_id[i] for i in rest], df, events, set(rest) if cls == "flagged" else (),
                                     columns=3, noted=set(rest) if cls != "flagged" else ())
-        cap = "More flagged sections, each zoomed to its wet part: " + "; ".join(
+        cap = ("Sections with notes only" if cls != "flagged" and budget <= 0 else "More flagged sections") + (
+            ", each zoomed to its wet part (ground brown, water per event, dark bar along the bottom: storage, which holds water but carries no flow): ") + "; ".join(
             f"<b>{sid}</b> ({by_id[sid].chainage:.0f} m): {esc(_why(flagged[sid]))}" for sid in rest)
         parts.append(figure(tiles, "cross-sections " + ", ".join(map(str, rest)), cap,
                             ident=f"sections-{cls}-more"))
@@ -90,12 +93,14 @@ def _flagged_part(geom, df, events, review: dict, notes: dict) -> list[str]:
                  f"<span class=\"flagged\">{len(review)} to review</span> (a flag of the flow or of the inputs "
                  "that an engineer must judge; red on the map and the long profile) and "
                  f"<span class=\"noted\">{len(notes)} with notes only</span> (how geoflow built the section or "
-                 "what it is; purple). The flag words are explained below.</p>")
+                 "what it is; purple). Sections to review get a figure each"
+                 f"{f' (the first {MAX_FLAGGED_FIGURES}; the rest as tiles)' if len(review) > MAX_FLAGGED_FIGURES else ''}"
+                 "; sections with notes only are drawn together as tiles. The flag words are explained below.</p>")
     parts.append('<h3 id="to-review">Sections to review</h3>')
     more, fig = _flagged_figures(geom, df, events, review, "flagged", MAX_FLAGGED_FIGURES, None)
     parts += more or ["<p>None.</p>"]
     parts.append('<h3 id="with-notes">Sections with notes only</h3>')
-    more, _ = _flagged_figures(geom, df, events, notes, "noted", MAX_FLAGGED_FIGURES - len(review), fig)
+    more, _ = _flagged_figures(geom, df, events, notes, "noted", 0, fig)
     return parts + (more or ["<p>None.</p>"])
 
 
@@ -169,7 +174,7 @@ def render_report(reach_id: str, geom, profile_df: pd.DataFrame, events, caution
     parts += _flagged_part(geom, df, events, review, notes)
     parts += _glossary_part(flagged)
     parts += ['<h2 id="all-sections">All cross-sections</h2>',
-              "<p>Each tile is one section, numbered, zoomed to its wet part (its own scales); red frame and number: "
+              "<p>Each tile is one section, numbered, zoomed to its wet part (its own scales); dark bar along the bottom: storage; red frame and number: "
               "to review; purple: notes only. Chainages, levels and depths are in the table below.</p>",
               figure(section_grid_figure(geom.sections, df, events, set(review), columns=8 if len(geom.sections) > 48
                                          else 6, noted=set(notes)), "all cross-sections", "", dpi=90)]
