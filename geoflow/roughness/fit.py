@@ -82,7 +82,7 @@ def fit_multipliers(residual: Callable[[np.ndarray], np.ndarray], groups: int, b
         count[0] += 1
         return np.concatenate([np.asarray(residual(x), dtype=float), weight * x])
 
-    from scipy.optimize import least_squares      # here: 0.35 s to import, used only by calibrations
+    from scipy.optimize import least_squares  # here: 0.35 s to import, used only by calibrations
     res = least_squares(fun, x0, bounds=(np.full(groups, lo), np.full(groups, hi)), method="trf", x_scale=1.0,
                         diff_step=DIFF_STEP, ftol=1e-10, xtol=1e-8, gtol=1e-10, max_nfev=max_evaluations)
     at_bound = (res.active_mask != 0) | (np.abs(res.x - lo) < 1e-6) | (np.abs(res.x - hi) < 1e-6)

@@ -63,7 +63,7 @@ def depth_for_flow(discharge: float, bottom_width: float, side_slope: float, n: 
                                  trapezoid_perimeter(bottom_width, side_slope, h), n, slope) - discharge
     if excess(max_depth) < 0:
         return None
-    from scipy.optimize import brentq      # here: scipy.optimize costs 0.35 s to import, most runs never burn
+    from scipy.optimize import brentq  # here: scipy.optimize costs 0.35 s to import, most runs never burn
     return float(brentq(excess, 1e-9, max_depth, xtol=1e-10, rtol=1e-12))
 
 
