@@ -77,7 +77,7 @@ def _flagged_figures(geom, df, events, flagged: dict, cls: str, budget: int, fig
     if rest:
         tiles = section_grid_figure([by_id[i] for i in rest], df, events, set(rest) if cls == "flagged" else (),
                                     columns=3, noted=set(rest) if cls != "flagged" else ())
-        cap = ("Sections with notes only" if cls != "flagged" and budget <= 0 else "More flagged sections") + (
+        cap = ("More flagged sections" if cls == "flagged" else "Sections with notes only") + (
             ", each zoomed to its wet part (ground brown, water per event, dark bar along the bottom: storage, which holds water but carries no flow): ") + "; ".join(
             f"<b>{sid}</b> ({by_id[sid].chainage:.0f} m): {esc(_why(flagged[sid]))}" for sid in rest)
         parts.append(figure(tiles, "cross-sections " + ", ".join(map(str, rest)), cap,

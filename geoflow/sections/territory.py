@@ -99,9 +99,9 @@ class Territory:
         distance is measured only at points where another reach is: elsewhere every other reach is
         +inf and the hint owns the point whatever its distance (u_h is kept there).
         """
-        pts = shapely.points(xy)
         trees = self._trees()
         if hint is None:
+            pts = shapely.points(xy)
             return np.stack([tree.query_nearest(pts, return_distance=True, all_matches=False)[1]
                              for tree in trees], axis=1)
         dist = np.full((len(xy), len(trees)), np.inf)
@@ -116,11 +116,12 @@ class Territory:
             gy = np.maximum(np.maximum(box[r, 1] - xy[:, 1], xy[:, 1] - box[r, 3]), 0.0)
             want = needed[:, r] | (~skip[r] & (np.hypot(gx, gy) <= ratio * self.scales[r]))
             if want.any():
-                dist[want, r] = tree.query_nearest(pts[want], return_distance=True, all_matches=False)[1]
+                dist[want, r] = tree.query_nearest(shapely.points(xy[want]), return_distance=True,
+                                                   all_matches=False)[1]
                 contested |= want
         dist[:, hint] = upper
         if contested.any():
-            dist[contested, hint] = trees[hint].query_nearest(pts[contested], return_distance=True,
+            dist[contested, hint] = trees[hint].query_nearest(shapely.points(xy[contested]), return_distance=True,
                                                               all_matches=False)[1]
         return dist
 
